@@ -1,0 +1,5 @@
+"""``python -m mna`` is the ``mna`` command."""
+
+from .cli import entry
+
+entry()

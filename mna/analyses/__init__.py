@@ -1,0 +1,1 @@
+"""Analyses: the DC operating point and the transient run."""

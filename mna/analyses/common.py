@@ -1,0 +1,108 @@
+"""What the analyses share: preparing a circuit, choosing and computing signals."""
+
+from __future__ import annotations
+
+import math
+from typing import TYPE_CHECKING, Sequence
+
+import numpy as np
+
+from ..circuit import SignalRef
+from ..elements.base import ELECTRICAL, REFERENCE, SHAFT
+from ..system import Probe, System, compile_circuit
+from ..topology import TopologyReport, check_topology
+from ..units import AMPERE, ANGULAR_SPEED, DIMENSIONLESS, VOLT
+
+if TYPE_CHECKING:  # pragma: no cover
+    from ..circuit import Circuit
+
+LEAK = 1e-12  # S (or N*m*s/rad): DC leak on nodes with no DC path
+
+
+def prepare(circuit: "Circuit") -> tuple[System, TopologyReport]:
+    """Topology checks, then compilation. Cached until the circuit changes."""
+    key = (len(circuit.elements), tuple(circuit.elements))
+    cached = getattr(circuit, "_compiled", None)
+    if cached is not None and cached[0] == key:
+        return cached[1], cached[2]
+    report = check_topology(circuit)
+    system = compile_circuit(circuit)
+    circuit._compiled = (key, system, report)
+    for w in report.warnings:
+        if w not in circuit.warnings:
+            circuit.warnings.append(w)
+    return system, report
+
+
+def dc_leak(system: System, report: TopologyReport) -> np.ndarray | None:
+    """Diagonal leak conductances for nodes with no DC path, or None."""
+    if not report.dc_floating:
+        return None
+    diag = np.zeros(system.n)
+    for node in report.dc_floating:
+        diag[system.node_index[node]] = LEAK
+    return diag
+
+
+def default_signals(circuit: "Circuit") -> list[SignalRef]:
+    """Every node potential, every element current, every shaft speed."""
+    refs = []
+    references = set(REFERENCE.values())
+    for node, domain in circuit.nodes.items():
+        if node in references:
+            continue
+        if domain == ELECTRICAL:
+            refs.append(SignalRef("v", (node,), "node", VOLT))
+        elif domain == SHAFT:
+            refs.append(SignalRef("w", (node,), "node", ANGULAR_SPEED))
+    for element in circuit.elements.values():
+        if "i" in element.outputs:
+            refs.append(SignalRef("i", (element.name,), "element", AMPERE))
+    return refs
+
+
+def compute_signal(ref: SignalRef, circuit: "Circuit", probe: Probe) -> np.ndarray:
+    """The array of one signal from what the probe holds."""
+    if ref.target == "across":
+        return probe.node(ref.names[0]) - probe.node(ref.names[1])
+    if ref.target == "node":
+        values = probe.node(ref.names[0])
+        if ref.quantity == "rpm":
+            return values * (60.0 / (2.0 * math.pi))
+        if ref.quantity == "angle":
+            return _cumulative_trapezoid(probe.time, values)
+        return values
+    element = circuit.elements[ref.names[0]]
+    return np.asarray(element.output(ref.quantity, probe), dtype=float)
+
+
+def _cumulative_trapezoid(t: np.ndarray, y: np.ndarray) -> np.ndarray:
+    out = np.zeros_like(y)
+    if len(y) > 1:
+        out[1:] = np.cumsum(0.5 * (y[1:] + y[:-1]) * np.diff(t))
+    return out
+
+
+def unit_label(ref: SignalRef) -> str:
+    """The unit shown beside a signal (CSV values are SI base units)."""
+    from ..units import unit_symbol
+
+    if ref.quantity == "rpm":
+        return "rpm"
+    if ref.quantity == "w":
+        return "rad/s"
+    if ref.quantity == "angle":
+        return "rad"
+    if ref.quantity == "torque":
+        return "N*m"
+    if ref.dimension == DIMENSIONLESS:
+        return ""
+    return unit_symbol(ref.dimension)
+
+
+def plan(system: System, circuit: "Circuit", refs: Sequence[SignalRef]) -> tuple[list[int], list[int]]:
+    """Which unknowns and states a run must keep to compute ``refs``."""
+    probe = Probe(system, np.zeros(1))
+    for ref in refs:
+        compute_signal(ref, circuit, probe)
+    return sorted(probe.need_x), sorted(probe.need_states)

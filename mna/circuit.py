@@ -1,0 +1,699 @@
+"""Circuit: named elements with checked values, nodes with domains.
+
+This is the embedding API's entry point::
+
+    import mna
+    circuit = mna.load("circuits/solenoid_valve.mna")   # or mna.parse(text)
+    op = circuit.dc()                                     # op["v(coil)"] -> float
+    res = circuit.transient(until=4e-3, step=1e-6)        # res.time, res["i(Lcoil)"]
+
+or, without any text::
+
+    c = mna.Circuit("rl")
+    c.add("voltage-source", "V1", "in", "gnd", 10)        # SI floats...
+    c.add("resistor", "R1", "in", "x", "5 ohm")           # ...or quantity text
+    c.add("inductor", "L1", "x", "gnd", "10 mH")
+    res = c.transient(until=5e-3, step=1e-6)
+
+Elaboration turns netlist statements into elements: it resolves each
+element kind, maps the operands to terminals, evaluates every argument and
+checks its dimension, and validates the ``simulate``, ``record``,
+``measure`` and ``check`` lines against the circuit's names.
+"""
+
+from __future__ import annotations
+
+import difflib
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Iterable, Sequence
+
+from . import netlist as nl
+from .elements.base import ELEMENT, ELECTRICAL, REFERENCE, SHAFT, Arg, Element
+from .elements.registry import lookup, suggest
+from .errors import InputError, NetlistSyntaxError, Span, UnitsError, UnknownNameError
+from .expressions import evaluate
+from .units import DIMENSIONLESS, HERTZ, SECOND, Dimension, Quantity, describe, parse_quantity
+from .units import UnitError
+from .waveforms import Constant, Piecewise, Pulse, Sine, Step, Waveform
+
+# --------------------------------------------------------------------------
+# Requests the file makes: analyses, recorded signals.
+
+
+@dataclass(frozen=True)
+class SignalRef:
+    """A circuit quantity named in ``record``, ``measure`` or ``check``.
+
+    ``label`` is the text used as the CSV heading (``v(sw)``, ``i(Lcoil)``).
+    ``target`` is ``"node"`` (``v(n)``, ``w(shaft)``), ``"across"``
+    (``v(a, b)``) or ``"element"`` (``i(R1)``, ``torque(M1)``).
+    """
+
+    quantity: str
+    names: tuple[str, ...]
+    target: str
+    dimension: Dimension
+    span: Span | None = None
+
+    @property
+    def label(self) -> str:
+        return f"{self.quantity}({', '.join(self.names)})"
+
+
+@dataclass
+class AnalysisRequest:
+    """A ``simulate`` line: the analysis and its settings (SI values)."""
+
+    analysis: str  # "dc" | "transient"
+    settings: dict[str, Any] = field(default_factory=dict)
+    span: Span | None = None
+
+
+TRANSIENT_SETTINGS: dict[str, Arg] = {
+    "until": Arg("until", SECOND, positive=True, doc="end time"),
+    "step": Arg("step", SECOND, default=None, positive=True, doc="fixed time step"),
+    "method": Arg("method", None, default="backward-euler", kind="choice",
+                  choices=("backward-euler", "trapezoidal", "bdf2")),
+    "start": Arg("start", None, default="dc", kind="choice", choices=("dc", "rest")),
+}
+ANALYSES: dict[str, dict[str, Arg]] = {"dc": {}, "transient": TRANSIENT_SETTINGS}
+
+
+# --------------------------------------------------------------------------
+# Value conversion shared by the netlist path and the Python API.
+
+_WAVEFORM_ARGS: dict[str, dict[str, tuple[str, Any]]] = {
+    # name -> (dimension role, default). "value" means the source's own unit.
+    "step": {"from": ("value", 0.0), "to": ("value", None), "at": ("time", 0.0), "rise": ("time", 0.0)},
+    "pwm": {
+        "low": ("value", 0.0), "high": ("value", None), "frequency": ("frequency", None),
+        "duty": ("fraction", None), "rise": ("time", 0.0), "fall": ("time", 0.0), "delay": ("time", 0.0),
+    },
+    "sine": {
+        "amplitude": ("value", None), "frequency": ("frequency", None), "offset": ("value", 0.0),
+        "phase": ("angle", 0.0), "delay": ("time", 0.0),
+    },
+}
+_ROLE_DIMENSION = {"time": SECOND, "frequency": HERTZ, "fraction": DIMENSIONLESS, "angle": DIMENSIONLESS}
+
+
+def _check_dimension(q: Quantity, want: Dimension, what: str, span: Span | None, got_text: str | None = None) -> float:
+    if q.dim != want:
+        got = describe(q.dim)
+        if got_text:
+            got = f"{got_text} ({describe(q.dim)})"
+        raise UnitsError(f"{what} needs {describe(want)}, got {got}", span)
+    return q.value
+
+
+class Elaborator:
+    """Builds elements and requests from statements, one circuit at a time."""
+
+    def __init__(self, circuit: "Circuit"):
+        self.circuit = circuit
+
+    # -- values ---------------------------------------------------------------
+    def quantity(self, expr: nl.Expr, want: Dimension | None, what: str) -> float:
+        q = evaluate(expr, self.circuit.params)
+        if want is None:
+            return q.value
+        text = expr.text if isinstance(expr, nl.Number) else None
+        return _check_dimension(q, want, what, expr.span, text)
+
+    def waveform(self, expr: nl.Expr, want: Dimension, what: str) -> Waveform:
+        if isinstance(expr, nl.Call) and expr.func in ("step", "pwm", "sine", "piecewise"):
+            if expr.func == "piecewise":
+                return self._piecewise(expr, want, what)
+            spec = _WAVEFORM_ARGS[expr.func]
+            if expr.args:
+                raise InputError(
+                    f"{expr.func}() takes named arguments only, like {expr.func}({next(iter(spec))}=...)",
+                    expr.args[0].span,
+                )
+            values: dict[str, float] = {}
+            for key, value, key_span in expr.named:
+                if key not in spec:
+                    raise UnknownNameError(
+                        f"{expr.func}() has no argument {key!r}", key_span,
+                        hint="it takes " + ", ".join(f"{k}=" for k in spec),
+                    )
+                if key in values:
+                    raise InputError(f"{key}= is given twice", key_span)
+                role = spec[key][0]
+                dim = want if role == "value" else _ROLE_DIMENSION[role]
+                values[key] = self.quantity(value, dim, f"{expr.func}() argument {key}")
+            for key, (role, default) in spec.items():
+                if key not in values:
+                    if default is None:
+                        raise InputError(f"{expr.func}() needs {key}=", expr.span)
+                    values[key] = default
+            return self._build_waveform(expr.func, values, expr.span)
+        if isinstance(expr, nl.Call) and lookup(expr.func) is None and expr.func not in ("sqrt", "exp", "ln", "log10", "sin", "cos", "tan", "atan", "abs", "min", "max"):
+            raise UnknownNameError(
+                f"unknown waveform {expr.func}()", expr.span,
+                hint="waveforms are step(...), pwm(...), sine(...) and piecewise(...)",
+            )
+        return Constant(self.quantity(expr, want, what))
+
+    def _build_waveform(self, func: str, v: dict[str, float], span: Span) -> Waveform:
+        if func == "step":
+            if v["rise"] < 0:
+                raise InputError("step() rise= cannot be negative", span)
+            return Step(v["from"], v["to"], v["at"], v["rise"])
+        if func == "pwm":
+            if v["frequency"] <= 0:
+                raise InputError("pwm() frequency= must be positive", span)
+            if not 0.0 <= v["duty"] <= 1.0:
+                raise InputError(f"pwm() duty= must lie between 0 % and 100 %, got {v['duty'] * 100:g} %", span)
+            period = 1.0 / v["frequency"]
+            on = v["duty"] * period
+            if v["rise"] < 0 or v["fall"] < 0:
+                raise InputError("pwm() rise= and fall= cannot be negative", span)
+            if v["rise"] > on or v["fall"] > period - on:
+                raise InputError(
+                    "pwm() edges do not fit the period: rise= must fit in the on time "
+                    "(duty*period) and fall= in the off time", span,
+                )
+            return Pulse(v["low"], v["high"], v["frequency"], v["duty"], v["rise"], v["fall"], v["delay"])
+        if v["frequency"] <= 0:
+            raise InputError("sine() frequency= must be positive", span)
+        return Sine(v["amplitude"], v["frequency"], v["offset"], v["phase"], v["delay"])
+
+    def _piecewise(self, expr: nl.Call, want: Dimension, what: str) -> Piecewise:
+        if expr.named or not expr.args:
+            raise InputError("piecewise() takes TIME: VALUE points, like piecewise(0 s: 0 V, 1 ms: 5 V)", expr.span)
+        times, levels = [], []
+        for item in expr.args:
+            if not isinstance(item, nl.Pair):
+                raise InputError("each piecewise() point is TIME: VALUE, like 1 ms: 5 V", item.span)
+            t = self.quantity(item.key, SECOND, "piecewise() point time")
+            if times and t <= times[-1]:
+                raise InputError("piecewise() times must increase from point to point", item.span)
+            times.append(t)
+            levels.append(self.quantity(item.value, want, f"{what} in piecewise()"))
+        return Piecewise(tuple(times), tuple(levels))
+
+    def choice(self, expr: nl.Expr, arg: Arg, what: str) -> str:
+        word = expr.name if isinstance(expr, nl.Name) else expr.word if isinstance(expr, nl.Word) else None
+        if word is None or word not in arg.choices:
+            raise InputError(f"{what} must be one of {', '.join(arg.choices)}", expr.span)
+        return word
+
+    def argument(self, arg: Arg, expr: nl.Expr, what: str) -> Any:
+        if arg.kind == "quantity":
+            value = self.quantity(expr, arg.dimension, what)
+        elif arg.kind == "waveform":
+            return self.waveform(expr, arg.dimension, what)
+        elif arg.kind == "choice":
+            return self.choice(expr, arg, what)
+        elif arg.kind == "expr":
+            return expr
+        else:  # pragma: no cover - a kind declared a bad Arg
+            raise TypeError(f"unknown argument kind {arg.kind!r}")
+        if arg.positive and not value > 0:
+            raise InputError(f"{what} must be positive, got {value:g}", expr.span)
+        if arg.nonnegative and value < 0:
+            raise InputError(f"{what} cannot be negative, got {value:g}", expr.span)
+        return value
+
+    # -- elements -------------------------------------------------------------
+    def element(self, st: nl.ElementStatement) -> Element:
+        cls = lookup(st.kind)
+        if cls is None:
+            close = suggest(st.kind)
+            hint = f"did you mean {close[0]!r}?" if close else "run 'mna kinds' for the list of element kinds"
+            raise UnknownNameError(f"unknown element kind {st.kind!r}", st.kind_span, hint=hint)
+        operands = list(st.operands)
+        nodes: dict[str, Any] = {}
+        spans: dict[str, Span] = {}
+        for port in cls.ports:
+            if port.keyword:
+                continue
+            if port.variadic:
+                names = []
+                while operands and isinstance(operands[0], (nl.Node, nl.Name)) and (
+                    len(operands) > 1 or _name(operands[0]) not in self.circuit.params
+                ):
+                    op = operands.pop(0)
+                    names.append(_name(op))
+                    spans.setdefault(port.names[0], op.span)
+                if len(names) < port.minimum:
+                    raise InputError(
+                        f"{st.kind} {st.name} needs at least {port.minimum} {port.names[0]} names", st.name_span
+                    )
+                nodes[port.names[0]] = names
+                continue
+            if not operands:
+                raise InputError(
+                    f"{st.kind} {st.name} needs its terminals: {_port_text(port)}", st.name_span
+                )
+            op = operands.pop(0)
+            if len(port.names) == 2:
+                if not isinstance(op, nl.NodePair):
+                    raise InputError(
+                        f"{st.kind} {st.name}: expected terminals as {_port_text(port)}", op.span
+                    )
+                nodes[port.names[0]], nodes[port.names[1]] = op.a, op.b
+                spans[port.names[0]], spans[port.names[1]] = op.a_span, op.b_span
+            else:
+                if not isinstance(op, (nl.Node, nl.Name)):
+                    raise InputError(
+                        f"{st.kind} {st.name}: expected a {port.domain} node name for {port.names[0]}", op.span
+                    )
+                nodes[port.names[0]] = _name(op)
+                spans[port.names[0]] = op.span
+        # What is left is the main value (at most one operand).
+        if len(operands) > 1:
+            raise InputError(
+                f"{st.kind} {st.name}: too many values; write extra settings as name=value "
+                "or put an expression in parentheses", operands[1].span,
+            )
+        raw: dict[str, tuple[nl.Expr, Span]] = {}
+        if operands:
+            op = operands[0]
+            if isinstance(op, nl.NodePair):
+                raise InputError(f"{st.kind} {st.name} has no more terminals; unexpected '->'", op.span)
+            if cls.main is None:
+                raise InputError(f"{st.kind} takes no value after its terminals; use name=value", op.span)
+            value_expr = nl.Name(op.name, op.span) if isinstance(op, nl.Node) else op
+            raw[cls.main] = (value_expr, op.span)
+        keyword_ports = {p.names[0]: p for p in cls.ports if p.keyword}
+        for a in st.arguments:
+            if a.key in keyword_ports:
+                port = keyword_ports[a.key]
+                if not isinstance(a.value, nl.Name):
+                    raise InputError(f"{a.key}= takes a {port.domain} node name", a.value.span)
+                nodes[a.key] = a.value.name
+                spans[a.key] = a.value.span
+                continue
+            if a.key in raw:
+                what = "the value after the terminals" if a.key == cls.main and raw[a.key][1] is not a.span else f"{a.key}="
+                raise InputError(f"{st.kind} {st.name}: {a.key} is given twice ({what})", a.span)
+            if cls.arg(a.key) is None:
+                known = [x.name for x in cls.arguments] + list(keyword_ports)
+                close = difflib.get_close_matches(a.key, known, n=1)
+                hint = f"did you mean {close[0]}=?" if close else "it takes " + ", ".join(f"{k}=" for k in known)
+                raise UnknownNameError(f"{st.kind} has no argument {a.key!r}", a.span, hint=hint)
+            raw[a.key] = (a.value, a.span)
+        for name in keyword_ports:
+            if name not in nodes:
+                raise InputError(f"{st.kind} {st.name} needs {name}=NODE", st.name_span)
+        params: dict[str, Any] = {}
+        for arg in cls.arguments:
+            if arg.name in raw:
+                expr, _ = raw[arg.name]
+                params[arg.name] = self.argument(arg, expr, f"{arg.name} of {st.kind} {st.name}")
+                spans[arg.name] = expr.span
+            elif arg.required:
+                how = "as the value after its terminals" if arg.name == cls.main else f"as {arg.name}=..."
+                raise InputError(f"{st.kind} {st.name} needs its {arg.name} ({how})", st.name_span)
+            else:
+                params[arg.name] = arg.default
+        try:
+            return cls(st.name, nodes, params, span=st.name_span, spans=spans)
+        except InputError:
+            raise
+        except (ValueError, TypeError) as exc:
+            raise InputError(f"{st.kind} {st.name}: {exc}", st.name_span) from None
+
+    # -- signals --------------------------------------------------------------
+    def signal(self, expr: nl.Expr) -> SignalRef:
+        return self.circuit.signal_ref(expr)
+
+    # -- analyses -------------------------------------------------------------
+    def analysis(self, st: nl.SimulateStatement) -> AnalysisRequest:
+        spec = ANALYSES.get(st.analysis)
+        if spec is None:
+            close = difflib.get_close_matches(st.analysis, list(ANALYSES), n=1)
+            raise UnknownNameError(
+                f"unknown analysis {st.analysis!r}", st.analysis_span,
+                hint=f"did you mean {close[0]!r}?" if close else "analyses are: " + ", ".join(ANALYSES),
+            )
+        settings: dict[str, Any] = {}
+        spans: dict[str, Span] = {}
+        for a in st.arguments:
+            arg = spec.get(a.key)
+            if arg is None:
+                raise UnknownNameError(
+                    f"simulate {st.analysis} has no setting {a.key!r}", a.span,
+                    hint=("it takes " + ", ".join(f"{k}=" for k in spec)) if spec else "it takes no settings",
+                )
+            if a.key in settings:
+                raise InputError(f"{a.key}= is given twice", a.span)
+            settings[a.key] = self.argument(arg, a.value, f"simulate {st.analysis} {a.key}=")
+            spans[a.key] = a.value.span
+        for key, arg in spec.items():
+            if key not in settings:
+                if arg.required:
+                    raise InputError(f"simulate {st.analysis} needs {key}=", st.analysis_span)
+                settings[key] = arg.default
+        request = AnalysisRequest(st.analysis, settings, st.analysis_span)
+        request.spans = spans  # type: ignore[attr-defined]
+        return request
+
+
+def _name(op) -> str:
+    return op.name
+
+
+def _port_text(port) -> str:
+    return " -> ".join(port.names) if len(port.names) == 2 else port.names[0]
+
+
+# --------------------------------------------------------------------------
+
+
+class Circuit:
+    """A circuit: elements, nodes (with domains), parameters and requests.
+
+    Build it from text with :func:`mna.parse` / :func:`mna.load`, or in
+    Python with :meth:`add`. Run it with :meth:`dc`, :meth:`transient` or
+    :meth:`run` (the file's own ``simulate`` lines).
+    """
+
+    def __init__(self, name: str = "circuit", title: str | None = None):
+        self.name = name
+        self.title = title
+        self.file: str | None = None
+        self.elements: dict[str, Element] = {}
+        self.nodes: dict[str, str] = {REFERENCE[ELECTRICAL]: ELECTRICAL, REFERENCE[SHAFT]: SHAFT}
+        self.node_spans: dict[str, Span | None] = {}
+        self.params: dict[str, Quantity] = {}
+        self.analyses: list[AnalysisRequest] = []
+        self.records: list[SignalRef] = []
+        self.measures: list[nl.MeasureStatement] = []
+        self.checks: list[nl.CheckStatement] = []
+        self.warnings: list[str] = []
+        self._elaborator = Elaborator(self)
+
+    def __repr__(self) -> str:
+        return f"<Circuit {self.name}: {len(self.elements)} elements, {len(self.nodes) - 2} nodes>"
+
+    # -- building -------------------------------------------------------------
+    def add_element(self, element: Element, span: Span | None = None) -> Element:
+        """Add an already built element, checking its name and node domains."""
+        if element.name in self.elements:
+            first = self.elements[element.name].span
+            where = f" (first defined at {first.where()})" if first else ""
+            raise InputError(f"duplicate element name {element.name!r}{where}", span or element.span)
+        for port in element.ports:
+            if port.domain == ELEMENT:
+                continue
+            for terminal in port.names:
+                node = element.nodes[terminal]
+                self._use_node(node, port.domain, element.spans.get(terminal, span or element.span), element)
+        self.elements[element.name] = element
+        return element
+
+    def _use_node(self, node: str, domain: str, span: Span | None, element: Element) -> None:
+        known = self.nodes.get(node)
+        if known is None:
+            self.nodes[node] = domain
+            self.node_spans[node] = span
+        elif known != domain:
+            if node in REFERENCE.values():
+                msg = (f"{node!r} is the {known} reference; {element.keyword} {element.name} needs "
+                       f"a {domain} node here")
+            else:
+                first = self.node_spans.get(node)
+                where = f" (used as {known} at {first.where()})" if first else ""
+                msg = (f"node {node!r} is a {known} node{where}, but {element.keyword} "
+                       f"{element.name} connects it as a {domain} node")
+            raise InputError(msg, span)
+
+    def add(self, kind: str, name: str, *terminals: str | Sequence[str], value: Any = None, **arguments: Any) -> Element:
+        """Add an element from Python.
+
+        ``terminals`` are node names in port order (``"a", "b"`` for a
+        two-terminal kind); a last positional value that is not a node name
+        may be given as ``value=``. Values are SI floats, quantity text
+        (``"10 mH"``) or waveform objects; argument names use ``_`` for
+        ``-`` (``saturation_current=1e-14``). Returns the element.
+        """
+        cls = lookup(kind)
+        if cls is None:
+            close = suggest(kind)
+            raise UnknownNameError(f"unknown element kind {kind!r}" + (f"; did you mean {close[0]!r}?" if close else ""))
+        flat = [t for t in terminals]
+        nodes: dict[str, Any] = {}
+        for port in cls.ports:
+            if port.keyword:
+                key = port.names[0]
+                if key not in arguments:
+                    raise InputError(f"{kind} {name} needs {key}=NODE")
+                nodes[key] = arguments.pop(key)
+                continue
+            if port.variadic:
+                nodes[port.names[0]] = [str(x) for x in flat]
+                flat = []
+                continue
+            for terminal in port.names:
+                if not flat:
+                    raise InputError(f"{kind} {name} needs terminals {', '.join(port.names)}")
+                nodes[terminal] = str(flat.pop(0))
+        if flat:
+            if value is not None or len(flat) > 1:
+                raise InputError(f"{kind} {name}: too many terminals {flat}")
+            value = flat[0]
+        params: dict[str, Any] = {}
+        given = {k.replace("_", "-"): v for k, v in arguments.items()}
+        if value is not None:
+            if cls.main is None:
+                raise InputError(f"{kind} takes no main value")
+            given[cls.main] = value
+        for key in given:
+            if cls.arg(key) is None:
+                raise UnknownNameError(f"{kind} has no argument {key!r}")
+        for arg in cls.arguments:
+            if arg.name in given:
+                params[arg.name] = _python_value(arg, given[arg.name], f"{arg.name} of {kind} {name}")
+            elif arg.required:
+                raise InputError(f"{kind} {name} needs {arg.name}")
+            else:
+                params[arg.name] = arg.default
+        return self.add_element(cls(name, nodes, params))
+
+    def set_parameter(self, name: str, value: Quantity | float | str) -> None:
+        if isinstance(value, str):
+            value = parse_quantity(value)
+        elif not isinstance(value, Quantity):
+            value = Quantity(float(value))
+        self.params[name] = value
+
+    def record(self, *signals: str) -> None:
+        """Choose what results keep, as in a ``record`` line: ``c.record("v(x)", "i(L1)")``."""
+        from .netlist import parse_netlist
+
+        for text in signals:
+            st = parse_netlist(f"record {text}").statements[0]
+            for q in st.quantities:
+                self.records.append(self.signal_ref(q))
+
+    # -- signal references ------------------------------------------------------
+    def signal_ref(self, expr: nl.Expr) -> SignalRef:
+        """Resolve ``v(sw)``, ``i(L1)``, ``v(a, b)`` ... against this circuit."""
+        from .units import AMPERE, VOLT
+
+        if not isinstance(expr, nl.Call) or expr.named or not all(isinstance(a, nl.Name) for a in expr.args):
+            raise InputError(
+                "expected a circuit quantity such as v(node), v(a, b), i(ELEMENT) or p(ELEMENT)",
+                getattr(expr, "span", None),
+            )
+        names = tuple(a.name for a in expr.args)
+        q = expr.func
+        if q == "v" and len(names) == 2:
+            for n, a in zip(names, expr.args):
+                self._require_node(n, ELECTRICAL, a.span)
+            return SignalRef("v", names, "across", VOLT, expr.span)
+        if len(names) != 1:
+            raise InputError(f"{q}() takes one name", expr.span)
+        (target,) = names
+        node_quantities = {"v": (ELECTRICAL, VOLT)}
+        node_quantities.update(_shaft_quantities())
+        if q in node_quantities and target in self.nodes and self.nodes[target] == node_quantities[q][0]:
+            return SignalRef(q, names, "node", node_quantities[q][1], expr.span)
+        element = self.elements.get(target)
+        if element is not None:
+            if q not in element.outputs:
+                have = ", ".join(f"{k}({target})" for k in element.outputs) or "nothing"
+                raise UnknownNameError(
+                    f"{element.keyword} {target} has no quantity {q}(); it offers {have}", expr.span
+                )
+            return SignalRef(q, names, "element", element.outputs[q], expr.span)
+        if q in node_quantities:
+            domain = node_quantities[q][0]
+            self._require_node(target, domain, expr.args[0].span)
+        if q in ("i", "p", "torque", "emf"):
+            close = difflib.get_close_matches(target, list(self.elements), n=1)
+            raise UnknownNameError(
+                f"no element named {target!r}", expr.args[0].span,
+                hint=f"did you mean {close[0]!r}?" if close else None,
+            )
+        raise UnknownNameError(f"unknown quantity {q}()", expr.span,
+                               hint="quantities: v(node), v(a, b), i(E), p(E), w(shaft), rpm(shaft)")
+
+    def _require_node(self, node: str, domain: str, span: Span | None) -> None:
+        have = self.nodes.get(node)
+        if have == domain:
+            return
+        if have is None:
+            close = difflib.get_close_matches(node, [n for n, d in self.nodes.items() if d == domain], n=1)
+            raise UnknownNameError(f"no {domain} node named {node!r}", span,
+                                   hint=f"did you mean {close[0]!r}?" if close else None)
+        raise InputError(f"{node!r} is a {have} node, not a {domain} node", span)
+
+    # -- analyses -------------------------------------------------------------
+    def dc(self, **options: Any):
+        """The DC operating point (inductors shorted, capacitors open, sources at t = 0)."""
+        from .analyses.dc import operating_point
+
+        return operating_point(self, **options)
+
+    def transient(
+        self,
+        until: float | str,
+        step: float | str | None = None,
+        method: str = "backward-euler",
+        start: str = "dc",
+        record: Iterable[str] | None = None,
+        **options: Any,
+    ):
+        """Transient analysis from 0 to ``until`` (s); returns :class:`~mna.results.Waveforms`.
+
+        ``step`` (s) fixes the time step. ``start`` is ``"dc"`` (from the
+        operating point) or ``"rest"`` (every state zero except the
+        ``initial=`` values). Times may be floats in seconds or text
+        (``"4 ms"``).
+        """
+        from .analyses.transient import transient
+
+        settings = {"until": _seconds(until, "until"), "step": _seconds(step, "step") if step is not None else None,
+                    "method": method, "start": start, **options}
+        records = None
+        if record is not None:
+            records = []
+            for text in record:
+                st = nl.parse_netlist(f"record {text}").statements[0]
+                records.extend(self.signal_ref(q) for q in st.quantities)
+        return transient(self, settings, records)
+
+    def run(self) -> list:
+        """Run the file's own ``simulate`` lines, in order; returns their results."""
+        out = []
+        for request in self.analyses:
+            if request.analysis == "dc":
+                out.append(self.dc())
+            else:
+                from .analyses.transient import transient
+
+                out.append(transient(self, dict(request.settings), None))
+        return out
+
+
+def _shaft_quantities() -> dict[str, tuple[str, Dimension]]:
+    from .units import ANGULAR_SPEED
+
+    return {"w": (SHAFT, ANGULAR_SPEED), "rpm": (SHAFT, ANGULAR_SPEED), "angle": (SHAFT, DIMENSIONLESS)}
+
+
+def _seconds(value: float | str, what: str) -> float:
+    if isinstance(value, str):
+        q = parse_quantity(value)
+        return _check_dimension(q, SECOND, what, None, value)
+    return float(value)
+
+
+def _python_value(arg: Arg, value: Any, what: str) -> Any:
+    """A value given from Python -> what the element expects."""
+    if arg.kind == "waveform":
+        if isinstance(value, Waveform):
+            return value
+        return Constant(_python_value(Arg(arg.name, arg.dimension), value, what))
+    if arg.kind == "choice":
+        if value not in arg.choices:
+            raise InputError(f"{what} must be one of {', '.join(arg.choices)}")
+        return value
+    if arg.kind == "expr":
+        if isinstance(value, str):
+            st = nl.parse_netlist(f"let _x = {value}").statements[0]
+            return st.value
+        return value
+    if isinstance(value, str):
+        try:
+            q = parse_quantity(value)
+        except UnitError as exc:
+            raise UnitsError(f"{what}: {exc}") from None
+        number = _check_dimension(q, arg.dimension, what, None, value)
+    elif isinstance(value, Quantity):
+        number = _check_dimension(value, arg.dimension, what, None)
+    else:
+        number = float(value)
+    if arg.positive and not number > 0:
+        raise InputError(f"{what} must be positive, got {number:g}")
+    if arg.nonnegative and number < 0:
+        raise InputError(f"{what} cannot be negative, got {number:g}")
+    return number
+
+
+# --------------------------------------------------------------------------
+# Netlist -> Circuit.
+
+
+def elaborate(netlist: nl.Netlist) -> Circuit:
+    """Build a :class:`Circuit` from parsed statements (checks names and units)."""
+    name = Path(netlist.file).stem if netlist.file else "circuit"
+    circuit = Circuit(name)
+    circuit.file = netlist.file
+    el = circuit._elaborator
+    pending_records: list[nl.RecordStatement] = []
+    seen_circuit: nl.CircuitStatement | None = None
+    for st in netlist.statements:
+        if isinstance(st, nl.LetStatement):
+            if st.name in circuit.params:
+                raise InputError(f"parameter {st.name!r} is already defined", st.span)
+            if st.name == "pi":
+                raise InputError("'pi' is a built-in constant and cannot be redefined", st.span)
+            circuit.params[st.name] = evaluate(st.value, circuit.params)
+        elif isinstance(st, nl.CircuitStatement):
+            if seen_circuit is not None:
+                raise InputError("a file describes one circuit: only one 'circuit' line", st.span)
+            seen_circuit = st
+            circuit.name, circuit.title = st.name, st.title
+        elif isinstance(st, nl.ElementStatement):
+            circuit.add_element(el.element(st), st.name_span)
+        elif isinstance(st, nl.SimulateStatement):
+            circuit.analyses.append(el.analysis(st))
+        elif isinstance(st, nl.RecordStatement):
+            pending_records.append(st)
+        elif isinstance(st, nl.MeasureStatement):
+            circuit.measures.append(st)
+        elif isinstance(st, nl.CheckStatement):
+            circuit.checks.append(st)
+    # Records may name elements defined further down the file.
+    for st in pending_records:
+        for q in st.quantities:
+            ref = circuit.signal_ref(q)
+            if any(r.label == ref.label for r in circuit.records):
+                continue
+            circuit.records.append(ref)
+    return circuit
+
+
+def parse(text: str, file: str | None = None) -> Circuit:
+    """Parse netlist text into a :class:`Circuit`."""
+    return elaborate(nl.parse_netlist(text, file))
+
+
+def load(path: str | Path) -> Circuit:
+    """Read a netlist file into a :class:`Circuit`."""
+    path = Path(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise InputError(f"{path}: no such file") from None
+    except IsADirectoryError:
+        raise InputError(f"{path}: is a folder, not a netlist file") from None
+    except UnicodeDecodeError as exc:
+        raise NetlistSyntaxError(f"{path}: not UTF-8 text ({exc.reason} at byte {exc.start})") from None
+    return parse(text, str(path))

@@ -1,0 +1,256 @@
+"""The element-kind protocol: what a plugin declares and implements.
+
+An element kind is a subclass of :class:`Element`. It declares, as class
+attributes:
+
+1. ``keyword`` -- the word that starts its netlist line (``"resistor"``).
+2. ``ports`` -- its terminals as :class:`Port` objects: a two-terminal
+   connection ``a -> b``, a single node, a keyword connection
+   (``shaft=rotor``) or a list of other elements (``coupling``), each with
+   its domain (``"electrical"`` or ``"shaft"``).
+3. ``main`` -- the name of the argument that the bare value after the
+   terminals fills (``resistance`` for ``resistor R1 a -> b 100 ohm``).
+4. ``arguments`` -- every argument as an :class:`Arg`, with the dimension it
+   must have and its default. Values reach the instance in SI units, in
+   ``self.params``.
+5. ``outputs`` -- the quantities the element exposes for ``record`` and
+   checks (``{"i": AMPERE, "v": VOLT, "p": WATT}``).
+
+and implements:
+
+6. ``branches()`` -- its connections for the topology checks, each with a
+   role (:data:`CONDUCTOR`, :data:`VOLTAGE`, :data:`CURRENT`, :data:`INDUCTOR`,
+   :data:`CAPACITOR`, :data:`GYRATOR`).
+7. ``unknowns()`` -- the extra unknowns it needs beyond node potentials
+   (a branch current, a winding current), as (local name, dimension).
+8. ``stamp(stamper)`` -- its contributions to the descriptor system
+   ``d/dt q(x) + f(x, t) = 0``: constant conductance-like entries of ``f``,
+   constant capacitance-like entries of ``q``, source terms, recordable
+   charges. Called once, at compile time.
+9. ``output(name, probe)`` -- the arrays of one output quantity over the
+   run, computed after the run from what the probe recorded.
+10. ``corners(start, stop)`` -- times (s) where its sources or gates change
+    slope or state; the transient solver lands on each one.
+
+A kind whose behaviour is nonlinear or changes at events sets ``Batch`` to
+a :class:`NonlinearBatch` subclass. The engine builds one batch per kind
+holding *all* instances, and evaluates it with one vectorised call per
+Newton iteration -- never a Python loop over instances inside the time loop.
+
+Kinds are found through the ``mna.elements`` entry-point group (see
+:mod:`mna.elements.registry`); the built-in kinds register the same way.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import TYPE_CHECKING, Any, ClassVar, Sequence
+
+import numpy as np
+
+from ..units import Dimension
+
+if TYPE_CHECKING:  # pragma: no cover
+    from ..errors import Span
+    from ..system import Probe, Stamper
+
+ELECTRICAL = "electrical"
+SHAFT = "shaft"
+ELEMENT = "element"  # a port that names other elements (coupling)
+
+#: The reference node of each domain.
+REFERENCE = {ELECTRICAL: "gnd", SHAFT: "frame"}
+
+# Topology roles of a branch.
+CONDUCTOR = "conductor"  # conducts at DC: resistor, diode, closed switch
+VOLTAGE = "voltage"  # fixes the potential difference: voltage source, speed source
+CURRENT = "current"  # fixes the flow: current source, load torque
+INDUCTOR = "inductor"  # conducts at DC, but its current is a state
+CAPACITOR = "capacitor"  # blocks DC: capacitor, inertia
+GYRATOR = "gyrator"  # a machine's coupling of an armature and a shaft
+
+REQUIRED = object()
+
+
+@dataclass(frozen=True)
+class Arg:
+    """One argument of an element kind.
+
+    ``kind`` says what the value is:
+
+    - ``"quantity"``: a number with the unit of ``dimension`` (checked);
+    - ``"waveform"``: a quantity or ``step(...)``, ``pwm(...)``,
+      ``sine(...)``, ``piecewise(...)`` whose values have ``dimension``;
+    - ``"choice"``: one word of ``choices``;
+    - ``"expr"``: the raw expression, interpreted by the element itself
+      (a switch gate, for instance).
+    """
+
+    name: str
+    dimension: Dimension | None = None
+    default: Any = REQUIRED
+    kind: str = "quantity"
+    choices: tuple[str, ...] = ()
+    positive: bool = False
+    nonnegative: bool = False
+    doc: str = ""
+
+    @property
+    def required(self) -> bool:
+        return self.default is REQUIRED
+
+
+@dataclass(frozen=True)
+class Port:
+    """Terminals of an element.
+
+    ``names`` holds one name (a single node, or a keyword connection) or
+    two (a connection ``a -> b``). ``keyword=True`` means the terminal is
+    given as ``name=node``. ``variadic=True`` (with ``domain=ELEMENT``) means
+    a list of element names.
+    """
+
+    names: tuple[str, ...]
+    domain: str = ELECTRICAL
+    keyword: bool = False
+    variadic: bool = False
+    minimum: int = 1
+
+
+TWO_TERMINAL = (Port(("a", "b"), ELECTRICAL),)
+
+
+@dataclass(frozen=True)
+class Branch:
+    """A connection between two nodes with a topology role."""
+
+    a: str
+    b: str
+    role: str
+
+
+@dataclass(frozen=True)
+class Unknown:
+    """An extra unknown an element asks for (a branch current...)."""
+
+    name: str
+    dimension: Dimension
+    description: str = ""
+
+
+class Element:
+    """Base class of element kinds. See the module docstring for the protocol."""
+
+    keyword: ClassVar[str] = ""
+    ports: ClassVar[tuple[Port, ...]] = TWO_TERMINAL
+    main: ClassVar[str | None] = None
+    arguments: ClassVar[tuple[Arg, ...]] = ()
+    outputs: ClassVar[dict[str, Dimension]] = {}
+    Batch: ClassVar[type["NonlinearBatch"] | None] = None
+    summary: ClassVar[str] = ""
+
+    def __init__(
+        self,
+        name: str,
+        nodes: dict[str, Any],
+        params: dict[str, Any],
+        span: "Span | None" = None,
+        spans: dict[str, "Span"] | None = None,
+    ):
+        self.name = name
+        self.nodes = nodes  # terminal name -> node name (or list of names)
+        self.params = params  # argument name -> SI value / waveform / expression
+        self.span = span
+        self.spans = spans or {}
+        self.validate()
+
+    def __repr__(self) -> str:
+        nodes = ", ".join(f"{k}={v}" for k, v in self.nodes.items())
+        return f"<{self.keyword} {self.name} {nodes}>"
+
+    # -- checks ------------------------------------------------------------
+    def validate(self) -> None:
+        """Check argument values beyond their dimension. Raise InputError."""
+
+    def span_of(self, argument: str) -> "Span | None":
+        """The span of an argument's value, or the element's span."""
+        return self.spans.get(argument, self.span)
+
+    @classmethod
+    def arg(cls, name: str) -> Arg | None:
+        for a in cls.arguments:
+            if a.name == name:
+                return a
+        return None
+
+    # -- topology ------------------------------------------------------------
+    def branches(self) -> list[Branch]:
+        return []
+
+    def terminal_nodes(self) -> list[tuple[str, str]]:
+        """(node, domain) pairs of every node terminal."""
+        out = []
+        for port in self.ports:
+            if port.domain == ELEMENT:
+                continue
+            for n in port.names:
+                out.append((self.nodes[n], port.domain))
+        return out
+
+    # -- compile -------------------------------------------------------------
+    def unknowns(self) -> tuple[Unknown, ...]:
+        return ()
+
+    def stamp(self, s: "Stamper") -> None:
+        """Add this element's constant contributions. Called once per compile."""
+
+    def corners(self, start: float, stop: float) -> np.ndarray:
+        return np.empty(0)
+
+    # -- results -------------------------------------------------------------
+    def output(self, quantity: str, probe: "Probe") -> np.ndarray:
+        raise NotImplementedError(f"{self.keyword} {self.name} has no output {quantity!r}")
+
+
+class NonlinearBatch:
+    """All instances of one nonlinear (or event-switched) kind, evaluated together.
+
+    Protocol, filled in by subclasses at construction (indices into the
+    unknown vector; reference nodes are dropped by the engine):
+
+    1. ``f_rows`` -- residual rows of the nonlinear ``f`` contributions.
+    2. ``jf_rows``, ``jf_cols`` -- the sparsity pattern of ``df/dx``.
+    3. ``q_rows``, ``jq_rows``, ``jq_cols`` -- same for nonlinear charges
+       ``q`` (empty arrays when the kind has none).
+    4. ``evaluate(x, t)`` returns ``(f_vals, jf_vals, q_vals, jq_vals)``,
+       one numpy computation for all instances.
+    5. ``limit(x_new, x_old)`` may shorten a Newton update (junction
+       limiting); the default returns ``x_new``.
+    6. ``piecewise_linear = True`` declares that the Jacobian only changes
+       at events (a switch); ``update_events(t, x)`` is then called after
+       each accepted step and returns True when a state changed.
+    """
+
+    piecewise_linear: ClassVar[bool] = False
+    empty = np.empty(0, dtype=np.int64)
+
+    def __init__(self, elements: Sequence[Element], stamper: "Stamper"):
+        self.elements = list(elements)
+        self.f_rows = self.empty
+        self.jf_rows = self.empty
+        self.jf_cols = self.empty
+        self.q_rows = self.empty
+        self.jq_rows = self.empty
+        self.jq_cols = self.empty
+
+    def evaluate(self, x: np.ndarray, t: float):
+        raise NotImplementedError
+
+    def limit(self, x_new: np.ndarray, x_old: np.ndarray) -> np.ndarray:
+        return x_new
+
+    def update_events(self, t: float, x: np.ndarray) -> bool:
+        return False
+
+    def corners(self, start: float, stop: float) -> np.ndarray:
+        return np.empty(0)

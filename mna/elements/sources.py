@@ -1,0 +1,78 @@
+"""Independent sources: voltage-source, current-source."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..units import AMPERE, VOLT
+from ..waveforms import Waveform
+from .base import CURRENT, VOLTAGE, Arg, Branch, Unknown
+from .passive import TwoTerminal
+
+
+class VoltageSource(TwoTerminal):
+    """``voltage-source V1 a -> b 24 V`` (or a waveform): v(a) - v(b) = V(t).
+
+    Its current flows from ``a`` through the source to ``b``, so a source
+    delivering power has a negative ``p``.
+    """
+
+    keyword = "voltage-source"
+    main = "voltage"
+    arguments = (Arg("voltage", VOLT, kind="waveform", doc="value or waveform"),)
+    summary = "independent voltage source"
+
+    @property
+    def waveform(self) -> Waveform:
+        return self.params["voltage"]
+
+    def branches(self):
+        return [Branch(self.nodes["a"], self.nodes["b"], VOLTAGE)]
+
+    def unknowns(self):
+        return (Unknown("i", AMPERE, "source current a -> b"),)
+
+    def stamp(self, s):
+        a, b, i = s.node(self.nodes["a"]), s.node(self.nodes["b"]), s.own("i")
+        s.G(a, i, 1.0)
+        s.G(b, i, -1.0)
+        s.G(i, a, 1.0)
+        s.G(i, b, -1.0)
+        s.source(i, 1.0, self.waveform)
+
+    def corners(self, start, stop):
+        return self.waveform.corners(start, stop)
+
+    def across(self, probe):
+        return self.waveform.values(probe.time)
+
+    def current(self, probe):
+        return probe.unknown(self, "i")
+
+
+class CurrentSource(TwoTerminal):
+    """``current-source I1 a -> b 2 A`` (or a waveform): I(t) flows a -> b through it."""
+
+    keyword = "current-source"
+    main = "current"
+    arguments = (Arg("current", AMPERE, kind="waveform", doc="value or waveform"),)
+    summary = "independent current source"
+
+    @property
+    def waveform(self) -> Waveform:
+        return self.params["current"]
+
+    def branches(self):
+        return [Branch(self.nodes["a"], self.nodes["b"], CURRENT)]
+
+    def stamp(self, s):
+        a, b = s.node(self.nodes["a"]), s.node(self.nodes["b"])
+        # f[a] += I(t) (current leaves a through the source), f[b] -= I(t).
+        s.source(a, -1.0, self.waveform)
+        s.source(b, 1.0, self.waveform)
+
+    def corners(self, start, stop):
+        return self.waveform.corners(start, stop)
+
+    def current(self, probe):
+        return np.asarray(self.waveform.values(probe.time), dtype=float)

@@ -1,0 +1,131 @@
+"""The one family of exceptions that mna raises.
+
+Every error derives from :class:`MnaError`. Errors about the input
+(:class:`InputError` and its subclasses) carry where the problem is -- file,
+line, column -- and can render the offending source line with a caret, so a
+message reads like::
+
+    relay.mna:7:22: capacitance needs farads (F), got henries (H)
+        capacitor C1 a -> gnd 4.7 uH
+                              ^
+
+Errors that happen while solving (:class:`SimulationError`) name the time,
+the step and the unknowns that failed, and keep the waveforms computed up
+to that point in ``.partial``.
+
+Command-line exit status: 2 for :class:`InputError`, 3 for
+:class:`SimulationError` (see ``mna.cli``).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+
+@dataclass(frozen=True)
+class Span:
+    """Where a piece of netlist text came from (line and column count from 1)."""
+
+    line: int
+    column: int
+    end_column: int | None = None
+    file: str | None = None
+    source_line: str | None = None
+
+    def where(self) -> str:
+        """``file:line:column`` (or ``line L, column C`` without a file)."""
+        if self.file:
+            return f"{self.file}:{self.line}:{self.column}"
+        return f"line {self.line}, column {self.column}"
+
+    def context(self) -> str:
+        """The source line and a caret under the column, or '' if unknown."""
+        if self.source_line is None:
+            return ""
+        text = self.source_line.rstrip("\r\n").expandtabs(1)
+        width = 1
+        if self.end_column and self.end_column > self.column:
+            width = self.end_column - self.column
+        return f"    {text}\n    {' ' * (self.column - 1)}{'^' * width}"
+
+
+class MnaError(Exception):
+    """Root of every error that mna raises on purpose."""
+
+
+class InputError(MnaError, ValueError):
+    """The netlist (or an API call standing for one) is wrong.
+
+    ``message`` says what is wrong and what was expected; ``span`` says
+    where. ``str(error)`` gives ``where: message`` followed by the caret
+    context when the source line is known.
+    """
+
+    def __init__(self, message: str, span: Span | None = None, *, hint: str | None = None):
+        self.message = message
+        self.span = span
+        self.hint = hint
+        super().__init__(self.render())
+
+    @property
+    def line(self) -> int | None:
+        return self.span.line if self.span else None
+
+    @property
+    def column(self) -> int | None:
+        return self.span.column if self.span else None
+
+    def render(self) -> str:
+        head = f"{self.span.where()}: {self.message}" if self.span else self.message
+        parts = [head]
+        if self.span and self.span.source_line is not None:
+            parts.append(self.span.context())
+        if self.hint:
+            parts.append(f"    hint: {self.hint}")
+        return "\n".join(parts)
+
+
+class NetlistSyntaxError(InputError):
+    """The text does not follow the netlist grammar."""
+
+
+class UnitsError(InputError):
+    """A quantity has a missing, unknown or wrong unit."""
+
+
+class UnknownNameError(InputError):
+    """A name refers to an element, node or parameter that does not exist."""
+
+
+class TopologyError(InputError):
+    """The circuit cannot be solved as connected (island, source loop, cut set)."""
+
+
+class SimulationError(MnaError, RuntimeError):
+    """The solve failed: singular matrix or no convergence.
+
+    ``time`` (s) and ``step`` (s) say where; ``unknowns`` names the
+    unknowns that did not settle; ``partial`` holds the results computed
+    up to the failure (or None).
+    """
+
+    def __init__(
+        self,
+        message: str,
+        *,
+        time: float | None = None,
+        step: float | None = None,
+        unknowns: tuple[str, ...] = (),
+        partial: Any = None,
+    ):
+        self.message = message
+        self.time = time
+        self.step = step
+        self.unknowns = tuple(unknowns)
+        self.partial = partial
+        super().__init__(message)
+
+
+class MeasurementError(InputError):
+    """A measurement cannot be taken on the waveforms (window outside the run...)."""

@@ -1,0 +1,604 @@
+"""Netlist text -> :class:`Netlist`: statements with source spans.
+
+This module knows the language's syntax and nothing of circuits: it does
+not know which element kinds exist, what their arguments mean or which
+names are defined. Those checks happen in :mod:`mna.circuit`.
+
+A file is split into statements by a plain line scan (a line that starts
+with a space or tab continues the statement above; blank and comment-only
+lines end nothing), then each statement is parsed with the lark grammar in
+``grammar/netlist.lark``. The most common statement shape in generated
+netlists -- ``KIND NAME a -> b VALUE key=value ...`` with plain quantities --
+takes a regular-expression fast path that builds exactly the objects the
+grammar would (``tests/test_netlist.py`` checks the two agree), so netlists
+of tens of thousands of lines parse in well under a second.
+"""
+
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass, field
+from functools import lru_cache
+from importlib import resources
+from pathlib import Path
+from typing import Union
+
+import lark
+from lark import Lark, Token, Transformer, v_args
+
+from .errors import NetlistSyntaxError, Span, UnitsError
+from .units import Quantity, UnitError, parse_quantity
+
+# --------------------------------------------------------------------------
+# Expression tree. Evaluated by mna.expressions, never by Python's eval.
+
+
+@dataclass(frozen=True)
+class Number:
+    """A literal quantity: ``10 mH``, ``0.98``."""
+
+    value: Quantity
+    text: str
+    span: Span
+
+
+@dataclass(frozen=True)
+class Name:
+    """A bare name: a parameter, a node, an element or a word like ``closed``."""
+
+    name: str
+    span: Span
+
+
+@dataclass(frozen=True)
+class Word:
+    """A hyphenated lower-case word used as a value: ``backward-euler``."""
+
+    word: str
+    span: Span
+
+
+@dataclass(frozen=True)
+class String:
+    text: str
+    span: Span
+
+
+@dataclass(frozen=True)
+class Call:
+    """``func(arg, ..., key=value, ..., a: b, ...)``; ``items`` keeps order."""
+
+    func: str
+    args: tuple["Expr", ...]
+    named: tuple[tuple[str, "Expr", Span], ...]
+    span: Span
+
+    def named_dict(self) -> dict[str, "Expr"]:
+        return {k: v for k, v, _ in self.named}
+
+
+@dataclass(frozen=True)
+class Pair:
+    """``key: value`` inside a call: a breakpoint of ``piecewise`` or ``schedule``."""
+
+    key: "Expr"
+    value: "Expr"
+    span: Span
+
+
+@dataclass(frozen=True)
+class BinaryOp:
+    op: str  # + - * / ^
+    left: "Expr"
+    right: "Expr"
+    span: Span
+
+
+@dataclass(frozen=True)
+class Negate:
+    operand: "Expr"
+    span: Span
+
+
+@dataclass(frozen=True)
+class Compare:
+    op: str  # < <= > >=
+    left: "Expr"
+    right: "Expr"
+    span: Span
+
+
+Expr = Union[Number, Name, Word, String, Call, Pair, BinaryOp, Negate, Compare]
+
+# --------------------------------------------------------------------------
+# Statements.
+
+
+@dataclass(frozen=True)
+class Node:
+    """A single terminal operand: ``rotor`` (or an element name for ``coupling``)."""
+
+    name: str
+    span: Span
+
+
+@dataclass(frozen=True)
+class NodePair:
+    """A two-terminal connection ``a -> b`` (reference direction a to b)."""
+
+    a: str
+    b: str
+    span: Span
+    a_span: Span
+    b_span: Span
+
+
+Operand = Union[Node, NodePair, Expr]
+
+
+@dataclass(frozen=True)
+class Argument:
+    key: str
+    value: Expr
+    span: Span  # of the key
+
+
+@dataclass(frozen=True)
+class ElementStatement:
+    kind: str
+    name: str
+    operands: tuple[Operand, ...]
+    arguments: tuple[Argument, ...]
+    span: Span
+    kind_span: Span
+    name_span: Span
+
+
+@dataclass(frozen=True)
+class LetStatement:
+    name: str
+    value: Expr
+    span: Span
+
+
+@dataclass(frozen=True)
+class CircuitStatement:
+    name: str
+    title: str | None
+    span: Span
+
+
+@dataclass(frozen=True)
+class SimulateStatement:
+    analysis: str
+    arguments: tuple[Argument, ...]
+    span: Span
+    analysis_span: Span
+
+
+@dataclass(frozen=True)
+class RecordStatement:
+    quantities: tuple[Expr, ...]
+    span: Span
+
+
+@dataclass(frozen=True)
+class MeasureStatement:
+    name: str
+    value: Expr
+    span: Span
+
+
+@dataclass(frozen=True)
+class CheckStatement:
+    """``check LEFT OP RIGHT`` or ``check LEFT within TOLERANCE of TARGET``."""
+
+    op: str  # < <= > >= or "within"
+    left: Expr
+    right: Expr
+    span: Span
+    tolerance: Expr | None = None
+    text: str = ""
+
+
+Statement = Union[
+    ElementStatement,
+    LetStatement,
+    CircuitStatement,
+    SimulateStatement,
+    RecordStatement,
+    MeasureStatement,
+    CheckStatement,
+]
+
+
+@dataclass
+class Netlist:
+    """The statements of one netlist file, in order, with their spans."""
+
+    statements: list[Statement] = field(default_factory=list)
+    file: str | None = None
+    text: str = ""
+
+
+# --------------------------------------------------------------------------
+# Grammar loading (the grammar file ships inside the package as mna/grammar).
+
+
+def grammar_text() -> str:
+    """The lark grammar of the language, as shipped with the package."""
+    packaged = resources.files("mna").joinpath("grammar/netlist.lark")
+    if packaged.is_file():
+        return packaged.read_text(encoding="utf-8")
+    return (Path(__file__).resolve().parent.parent / "grammar" / "netlist.lark").read_text(
+        encoding="utf-8"
+    )
+
+
+@lru_cache(maxsize=1)
+def _parser() -> Lark:
+    return Lark(grammar_text(), parser="lalr", start="statement", maybe_placeholders=False)
+
+
+# --------------------------------------------------------------------------
+# Splitting a file into statements.
+
+
+@dataclass(frozen=True)
+class _Chunk:
+    text: str
+    first_line: int  # 1-based line number of the statement's first line
+
+
+def split_statements(text: str) -> list[_Chunk]:
+    """Split netlist text into statements by the continuation rule."""
+    chunks: list[_Chunk] = []
+    current: list[str] = []
+    first = 0
+    for number, line in enumerate(text.splitlines(), start=1):
+        head = line[:1]
+        if head and head not in " \t#":
+            if current:
+                chunks.append(_Chunk("\n".join(current), first))
+            current = [line]
+            first = number
+        elif current:
+            current.append(line)
+        elif line.strip() and not line.lstrip().startswith("#"):
+            # An indented line before any statement: nothing to continue.
+            raise NetlistSyntaxError(
+                "this line is indented but there is no statement above it to continue",
+                Span(number, len(line) - len(line.lstrip()) + 1, source_line=line),
+                hint="statements start in column 1; indent only continuation lines",
+            )
+    if current:
+        chunks.append(_Chunk("\n".join(current), first))
+    return chunks
+
+
+# --------------------------------------------------------------------------
+# Parse tree -> statements.
+
+
+class _Builder(Transformer):
+    """Turns one statement's parse tree into statement objects."""
+
+    def __init__(self, chunk: _Chunk, file: str | None, lines: list[str]):
+        super().__init__()
+        self._first = chunk.first_line
+        self._file = file
+        self._lines = lines
+
+    def span(self, token: Token, end_token: Token | None = None) -> Span:
+        line = self._first + token.line - 1
+        end = end_token if end_token is not None else token
+        end_col = end.end_column if end.line == token.line else None
+        src = self._lines[line - 1] if 0 < line <= len(self._lines) else None
+        return Span(line, token.column, end_col, self._file, src)
+
+    # -- atoms
+    def quantity(self, children):
+        (tok,) = children
+        return make_number(str(tok), self.span(tok))
+
+    def name(self, children):
+        (tok,) = children
+        return Name(str(tok), self.span(tok))
+
+    def word(self, children):
+        (tok,) = children
+        return Word(str(tok), self.span(tok))
+
+    def string(self, children):
+        (tok,) = children
+        return String(str(tok)[1:-1], self.span(tok))
+
+    def node(self, children):
+        (tok,) = children
+        return Node(str(tok), self.span(tok))
+
+    def node_pair(self, children):
+        a, b = children
+        return NodePair(str(a), str(b), self.span(a, b), self.span(a), self.span(b))
+
+    def comma(self, children):
+        return _COMMA
+
+    # -- operators
+    def _binary(op):  # noqa: N805 - helper building methods
+        def build(self, children):
+            left, right = children
+            return BinaryOp(op, left, right, span_of(left))
+
+        return build
+
+    add = _binary("+")
+    sub = _binary("-")
+    mul = _binary("*")
+    div = _binary("/")
+    pow = _binary("^")
+
+    def neg(self, children):
+        (operand,) = children
+        return Negate(operand, span_of(operand))
+
+    def compare(self, children):
+        left, op, right = children
+        return Compare(str(op), left, right, span_of(left))
+
+    def call(self, children):
+        func, *items = children
+        args, named = [], []
+        for item in items:
+            if isinstance(item, tuple):
+                named.append(item)
+            else:
+                args.append(item)
+        return Call(str(func), tuple(args), tuple(named), self.span(func))
+
+    def named_arg(self, children):
+        key, value = children
+        return (str(key), value, self.span(key))
+
+    def pair(self, children):
+        key, value = children
+        return Pair(key, value, span_of(key))
+
+    def argument(self, children):
+        key, value = children
+        return Argument(str(key), value, self.span(key))
+
+    # -- statements
+    def element(self, children):
+        kind, name, *rest = children
+        operands = tuple(c for c in rest if not isinstance(c, Argument))
+        args = tuple(c for c in rest if isinstance(c, Argument))
+        return ElementStatement(
+            str(kind), str(name), operands, args, self.span(kind), self.span(kind), self.span(name)
+        )
+
+    def let_stmt(self, children):
+        name, value = children
+        return LetStatement(str(name), value, self.span(name))
+
+    def circuit_stmt(self, children):
+        name, *title = children
+        return CircuitStatement(str(name), str(title[0])[1:-1] if title else None, self.span(name))
+
+    def simulate_stmt(self, children):
+        analysis, *args = children
+        return SimulateStatement(str(analysis), tuple(args), self.span(analysis), self.span(analysis))
+
+    def record_stmt(self, children):
+        return RecordStatement(tuple(children), span_of(children[0]))
+
+    def measure_stmt(self, children):
+        name, value = children
+        return MeasureStatement(str(name), value, self.span(name))
+
+    def check_compare(self, children):
+        left, op, right = children
+        return CheckStatement(str(op), left, right, span_of(left))
+
+    def check_within(self, children):
+        left, tolerance, target = children
+        return CheckStatement("within", left, target, span_of(left), tolerance=tolerance)
+
+
+class _Comma:
+    """Marker for an optional comma between operands (dropped)."""
+
+
+_COMMA = _Comma()
+
+
+def span_of(thing) -> Span:
+    """The span of any expression, operand or statement."""
+    return thing.span
+
+
+def make_number(text: str, span: Span) -> Number:
+    """A literal quantity token -> :class:`Number`, with unit errors placed."""
+    try:
+        value = parse_quantity(text)
+    except UnitError as exc:
+        offset = getattr(exc, "offset", None) or 0
+        col = span.column + offset
+        raise UnitsError(str(exc), Span(span.line, col, None, span.file, span.source_line)) from None
+    return Number(value, text.strip(), span)
+
+
+# --------------------------------------------------------------------------
+# Fast path for ``KIND NAME a -> b [VALUE] [key=VALUE ...]`` on one line.
+
+_Q = (
+    r"[-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?"
+    r"(?:[ \t]*[A-Za-z\u00b5\u03bc\u03a9%]+(?:\^-?\d+)?"
+    r"(?:[*/][A-Za-z\u00b5\u03bc\u03a9%]+(?:\^-?\d+)?)*)?"
+)
+_FAST = re.compile(
+    r"(?P<kind>[a-z][a-z0-9]*(?:-[a-z0-9]+)*)[ \t]+"
+    r"(?P<name>[A-Za-z][A-Za-z0-9_]*)[ \t]+"
+    r"(?P<a>[A-Za-z][A-Za-z0-9_]*)[ \t]*->[ \t]*(?P<b>[A-Za-z][A-Za-z0-9_]*)"
+    rf"(?:[ \t]+(?P<value>{_Q}))?"
+    rf"(?P<args>(?:[ \t]+[a-z][a-z0-9]*(?:-[a-z0-9]+)*[ \t]*=[ \t]*{_Q})*)"
+    r"[ \t]*(?:#[^\n]*)?"
+)
+_FAST_ARG = re.compile(rf"([a-z][a-z0-9]*(?:-[a-z0-9]+)*)[ \t]*=[ \t]*({_Q})")
+_STATEMENT_WORDS = frozenset({"let", "circuit", "simulate", "record", "measure", "check"})
+
+
+def _fast_element(chunk: _Chunk, file: str | None, lines: list[str]) -> ElementStatement | None:
+    text = chunk.text
+    if "\n" in text or '"' in text:
+        return None
+    m = _FAST.fullmatch(text)
+    if m is None or m["kind"] in _STATEMENT_WORDS:
+        return None
+    line = chunk.first_line
+    src = lines[line - 1]
+
+    def sp(start: int, end: int) -> Span:
+        return Span(line, start + 1, end + 1, file, src)
+
+    operands: list[Operand] = [
+        NodePair(m["a"], m["b"], sp(m.start("a"), m.end("b")), sp(m.start("a"), m.end("a")),
+                 sp(m.start("b"), m.end("b")))
+    ]
+    if m["value"] is not None:
+        operands.append(make_number(m["value"], sp(m.start("value"), m.end("value"))))
+    args = []
+    base = m.start("args")
+    for am in _FAST_ARG.finditer(m["args"]):
+        key_span = sp(base + am.start(1), base + am.end(1))
+        value_span = sp(base + am.start(2), base + am.end(2))
+        args.append(Argument(am[1], make_number(am[2], value_span), key_span))
+    kind_span = sp(m.start("kind"), m.end("kind"))
+    return ElementStatement(
+        m["kind"], m["name"], tuple(operands), tuple(args), kind_span, kind_span,
+        sp(m.start("name"), m.end("name")),
+    )
+
+
+# --------------------------------------------------------------------------
+# Syntax errors in plain words.
+
+_EXPECTED_WORDS = {
+    "NAME": "a name",
+    "KIND": "an element kind or a statement word",
+    "KEY": "an argument name followed by '='",
+    "QUANTITY": "a number or quantity",
+    "SIGNED_QUANTITY": "a number or quantity",
+    "WORD": "a word",
+    "STRING": 'a "quoted title"',
+    "COMPARE": "a comparison (< <= > >=)",
+    "LPAR": "'('",
+    "RPAR": "')'",
+    "COMMA": "','",
+    "EQUAL": "'='",
+    "COLON": "':'",
+    "PLUS": "'+'",
+    "MINUS": "'-'",
+    "STAR": "'*'",
+    "SLASH": "'/'",
+    "CIRCUMFLEX": "'^'",
+    "$END": "the end of the statement",
+}
+
+
+def _describe_expected(expected: set[str]) -> str:
+    terminals = {t.name: t for t in _parser().terminals}
+    words: list[str] = []
+    for name in sorted(expected):
+        word = _EXPECTED_WORDS.get(name)
+        if word is None:
+            term = terminals.get(name)
+            if term is not None and term.pattern.type == "str":
+                word = f"'{term.pattern.value}'"
+            else:
+                word = name.lower()
+        if word not in words:
+            words.append(word)
+    if not words:
+        return "something else"
+    if len(words) == 1:
+        return words[0]
+    return ", ".join(words[:-1]) + " or " + words[-1]
+
+
+def _syntax_error(exc: lark.exceptions.LarkError, chunk: _Chunk, file: str | None,
+                  lines: list[str]) -> NetlistSyntaxError:
+    line = chunk.first_line + getattr(exc, "line", 1) - 1
+    column = getattr(exc, "column", 1) or 1
+    src = lines[line - 1] if 0 < line <= len(lines) else None
+    span = Span(line, column, None, file, src)
+    if isinstance(exc, lark.exceptions.UnexpectedCharacters):
+        char = exc.char
+        if char == "." and column == 1:
+            msg = "unexpected '.': statements start with a word (element kind, let, simulate...), not a dot"
+        elif char == '"':
+            msg = 'unclosed quote: a "title" must end on the same line'
+        else:
+            msg = f"unexpected character {char!r}"
+        return NetlistSyntaxError(msg, span)
+    if isinstance(exc, lark.exceptions.UnexpectedToken):
+        tok = exc.token
+        expected = set(exc.expected)
+        if tok.type == "$END":
+            text = chunk.text.rstrip()
+            opens = text.count("(") - text.count(")")
+            if opens > 0:
+                msg = "unclosed parenthesis: this statement ends before its ')'"
+            else:
+                msg = f"the statement ends too early; expected {_describe_expected(expected)}"
+            endline = chunk.first_line + text.count("\n")
+            src_end = lines[endline - 1] if 0 < endline <= len(lines) else None
+            col_end = len(src_end.rstrip()) + 1 if src_end else 1
+            return NetlistSyntaxError(msg, Span(endline, col_end, None, file, src_end))
+        got = str(tok)
+        if tok.type == "RPAR" and "RPAR" not in expected:
+            msg = "unmatched ')'"
+        elif tok.type == "EQUAL" and column > 1:
+            msg = "unexpected '=': argument names are lower-case words joined by '-', like saturation-current="
+        else:
+            msg = f"unexpected {got!r}; expected {_describe_expected(expected)}"
+        return NetlistSyntaxError(msg, Span(line, column, column + max(len(got), 1), file, src))
+    return NetlistSyntaxError(str(exc).splitlines()[0], span)
+
+
+# --------------------------------------------------------------------------
+# Public entry points.
+
+
+def parse_netlist(text: str, file: str | None = None) -> Netlist:
+    """Parse netlist text into a :class:`Netlist`.
+
+    Raises :class:`~mna.errors.NetlistSyntaxError` (or
+    :class:`~mna.errors.UnitsError` for a malformed quantity) with the file,
+    line and column of the first problem.
+    """
+    if text.startswith("\ufeff"):
+        text = text[1:]
+    lines = text.splitlines()
+    netlist = Netlist(file=file, text=text)
+    parser = _parser()
+    for chunk in split_statements(text):
+        statement = _fast_element(chunk, file, lines)
+        if statement is None:
+            try:
+                tree = parser.parse(chunk.text)
+            except lark.exceptions.UnexpectedInput as exc:
+                raise _syntax_error(exc, chunk, file, lines) from None
+            statement = _Builder(chunk, file, lines).transform(tree)
+        netlist.statements.append(statement)
+    return netlist
+
+
+def parse_file(path: str | Path) -> Netlist:
+    """Read and parse a netlist file (UTF-8)."""
+    path = Path(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except UnicodeDecodeError as exc:
+        raise NetlistSyntaxError(f"{path}: not UTF-8 text ({exc.reason} at byte {exc.start})") from None
+    return parse_netlist(text, file=str(path))

@@ -1,0 +1,103 @@
+"""Output files of a run: the JSON summary and the PNG plot.
+
+Both are written atomically (whole or not at all). matplotlib is imported
+only when a plot is drawn, so ``mna --help`` stays quick.
+"""
+
+from __future__ import annotations
+
+import io
+import json
+import math
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from .results import OperatingPoint, Waveforms, write_atomic
+
+# Our own palette: dark teal, amber, brick, slate blue, olive, plum.
+PALETTE = ["#1b6f77", "#d08c1b", "#a4402f", "#4a5d9c", "#6f7f2a", "#7d4a7a"]
+
+
+def _clean(value: Any) -> Any:
+    if isinstance(value, float):
+        return value if math.isfinite(value) else str(value)
+    if isinstance(value, dict):
+        return {k: _clean(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_clean(v) for v in value]
+    if isinstance(value, np.generic):
+        return _clean(value.item())
+    return value
+
+
+def summary(circuit, results: list, outputs: dict[str, str] | None = None,
+            extra: dict[str, Any] | None = None) -> dict[str, Any]:
+    """The run summary as plain data (what ``summary.json`` holds)."""
+    analyses = []
+    for request, result in zip(circuit.analyses, results):
+        entry: dict[str, Any] = {"analysis": request.analysis, "settings": dict(request.settings)}
+        if isinstance(result, OperatingPoint):
+            entry["operating_point"] = {k: {"value": v, "unit": result.units.get(k, "")}
+                                        for k, v in result.values.items()}
+            entry["status"] = "ok"
+        elif isinstance(result, Waveforms):
+            entry["status"] = result.status
+            if result.message:
+                entry["message"] = result.message
+            entry["signals"] = {k: result.units.get(k, "") for k in result.labels()}
+        entry["statistics"] = dict(result.statistics)
+        analyses.append(entry)
+    data = {
+        "circuit": {"name": circuit.name, "title": circuit.title, "file": circuit.file,
+                    "elements": len(circuit.elements), "nodes": len(circuit.nodes) - 2},
+        "analyses": analyses,
+        "warnings": list(circuit.warnings),
+        "outputs": outputs or {},
+    }
+    if extra:
+        data.update(extra)
+    return _clean(data)
+
+
+def write_json(path: str | Path, data: dict[str, Any]) -> Path:
+    return write_atomic(path, json.dumps(data, indent=2, sort_keys=False) + "\n")
+
+
+def _time_scale(t_end: float) -> tuple[float, str]:
+    for factor, unit in ((1.0, "s"), (1e-3, "ms"), (1e-6, "us"), (1e-9, "ns")):
+        if t_end >= factor:
+            return factor, unit
+    return 1.0, "s"
+
+
+def plot_waveforms(path: str | Path, waves: Waveforms, title: str) -> Path:
+    """One panel per unit (signals of one unit share a panel), shared time axis."""
+    import matplotlib
+
+    matplotlib.use("Agg", force=True)
+    import matplotlib.pyplot as plt
+
+    groups: dict[str, list[str]] = {}
+    for label in waves.labels():
+        groups.setdefault(waves.units.get(label, ""), []).append(label)
+    panels = list(groups.items())[:6]
+    t_end = float(waves.time[-1]) if waves.time.size else 1.0
+    factor, t_unit = _time_scale(t_end)
+    fig, axes = plt.subplots(len(panels) or 1, 1, sharex=True, figsize=(8.5, 2.2 + 1.9 * max(len(panels), 1)),
+                             squeeze=False)
+    for ax, (unit, labels) in zip(axes[:, 0], panels):
+        for j, label in enumerate(labels[:6]):
+            ax.plot(waves.time / factor, waves[label], color=PALETTE[j % len(PALETTE)], linewidth=1.2,
+                    label=label)
+        ax.set_ylabel(f"[{unit}]" if unit else "[1]")
+        ax.grid(True, color="#d9d9d9", linewidth=0.6)
+        ax.legend(loc="best", fontsize=8, frameon=False)
+    axes[-1, 0].set_xlabel(f"time [{t_unit}]")
+    fig.suptitle(title, fontsize=11)
+    fig.tight_layout()
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=110)
+    plt.close(fig)
+    return write_atomic(path, buf.getvalue())

@@ -1,0 +1,140 @@
+"""Results of analyses: :class:`Waveforms` and :class:`OperatingPoint`.
+
+Both map a signal label exactly as written in ``record`` (``"v(sw)"``,
+``"i(Lcoil)"``) to values in SI base units, and carry each signal's unit
+and the run statistics. Writers for CSV live here too; every file is
+written to a temporary name and moved into place, so it appears whole or
+not at all.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import os
+import tempfile
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Iterator
+
+import numpy as np
+
+from .errors import InputError
+
+
+@dataclass
+class OperatingPoint:
+    """The DC operating point: ``op["v(out)"]`` is a float in SI units."""
+
+    values: dict[str, float]
+    units: dict[str, str]
+    statistics: dict[str, Any] = field(default_factory=dict)
+    warnings: list[str] = field(default_factory=list)
+    analysis: str = "dc"
+
+    def __getitem__(self, label: str) -> float:
+        try:
+            return self.values[_normal(label)]
+        except KeyError:
+            raise KeyError(_missing(label, self.values)) from None
+
+    def __contains__(self, label: str) -> bool:
+        return _normal(label) in self.values
+
+    def __iter__(self) -> Iterator[str]:
+        return iter(self.values)
+
+    def labels(self) -> list[str]:
+        return list(self.values)
+
+
+@dataclass
+class Waveforms:
+    """Transient results: ``res.time`` (s) and ``res["i(L1)"]``, numpy arrays.
+
+    ``status`` is ``"ok"`` or ``"failed"``; a failed run keeps what it
+    computed up to the failure and says why in ``message``.
+    """
+
+    time: np.ndarray
+    signals: dict[str, np.ndarray]
+    units: dict[str, str]
+    statistics: dict[str, Any] = field(default_factory=dict)
+    warnings: list[str] = field(default_factory=list)
+    status: str = "ok"
+    message: str = ""
+    analysis: str = "transient"
+
+    def __getitem__(self, label: str) -> np.ndarray:
+        if label == "time":
+            return self.time
+        try:
+            return self.signals[_normal(label)]
+        except KeyError:
+            raise KeyError(_missing(label, self.signals)) from None
+
+    def __contains__(self, label: str) -> bool:
+        return _normal(label) in self.signals
+
+    def __iter__(self) -> Iterator[str]:
+        return iter(self.signals)
+
+    def labels(self) -> list[str]:
+        return list(self.signals)
+
+    def at(self, label: str, t: float) -> float:
+        """Linear interpolation of a signal at time t (s)."""
+        return float(np.interp(t, self.time, self[label]))
+
+    def to_csv(self, path: str | Path) -> Path:
+        """Write ``time`` then one column per signal (SI values); atomic."""
+        buf = io.StringIO()
+        writer = csv.writer(buf, lineterminator="\n")
+        labels = self.labels()
+        writer.writerow(["time", *labels])
+        columns = np.column_stack([self.time] + [self.signals[k] for k in labels])
+        np.savetxt(buf, columns, delimiter=",", fmt="%.10g")
+        return write_atomic(path, buf.getvalue())
+
+
+def _normal(label: str) -> str:
+    """``v( a ,b)`` -> ``v(a, b)``: the canonical spelling of a label."""
+    label = label.strip()
+    if "(" in label and label.endswith(")"):
+        func, _, rest = label.partition("(")
+        args = [a.strip() for a in rest[:-1].split(",")]
+        return f"{func.strip()}({', '.join(args)})"
+    return label
+
+
+def _missing(label: str, have) -> str:
+    import difflib
+
+    close = difflib.get_close_matches(_normal(label), list(have), n=3)
+    more = f"; did you mean {', '.join(close)}?" if close else f"; recorded: {', '.join(list(have)[:12])}"
+    return f"no signal {label!r} in these results{more}"
+
+
+def write_atomic(path: str | Path, text: str | bytes) -> Path:
+    """Write a whole file or nothing: temporary file in the same folder, then rename."""
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    mode = "wb" if isinstance(text, bytes) else "w"
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
+    try:
+        with os.fdopen(fd, mode, **({} if mode == "wb" else {"encoding": "utf-8", "newline": ""})) as fh:
+            fh.write(text)
+        os.replace(tmp, path)
+    except BaseException:
+        try:
+            os.unlink(tmp)
+        except OSError:
+            pass
+        raise
+    return path
+
+
+def check_label(label: str) -> str:
+    if not label:
+        raise InputError("empty signal label")
+    return _normal(label)

@@ -1,0 +1,412 @@
+"""The compiled MNA system: unknowns, sparse matrices, source terms, batches.
+
+Every element contributes to one descriptor system
+
+    d/dt q(x) + f(x, t) = 0
+
+with x = [node potentials (V or rad/s), extra unknowns (branch currents...)].
+Linear parts are constant sparse matrices, ``q = C x`` and
+``f = G x - s(t)``; nonlinear kinds add values and Jacobian entries through
+their :class:`~mna.elements.base.NonlinearBatch`.
+
+Compilation happens once. Every matrix the solver needs, ``alpha*C + G +
+(batch Jacobians)``, shares one sparsity pattern (the union of all stamps),
+and each stamp's position in the CSC data array is precomputed, so
+assembling a matrix is a couple of numpy calls with no Python loop over
+elements.
+"""
+
+from __future__ import annotations
+
+from collections import defaultdict
+from dataclasses import dataclass, field
+from typing import TYPE_CHECKING
+
+import numpy as np
+import scipy.sparse as sp
+
+from .elements.base import REFERENCE, Element, NonlinearBatch
+from .units import AMPERE, ANGULAR_SPEED, VOLT, Dimension
+from .waveforms import BatchEvaluator, Waveform
+
+if TYPE_CHECKING:  # pragma: no cover
+    from .circuit import Circuit
+
+#: Absolute Newton tolerance per unknown dimension (SI): 1 uV, 1 pA, 1 urad/s.
+ABSTOL = {VOLT: 1e-6, AMPERE: 1e-12, ANGULAR_SPEED: 1e-6}
+DEFAULT_ABSTOL = 1e-9
+
+
+class Stamper:
+    """Collects element contributions at compile time.
+
+    Indices are into the unknown vector; ``-1`` is the reference node of a
+    domain and every stamp on it is dropped. Elements call these methods
+    from their ``stamp``; this is the only place Python loops over elements.
+    """
+
+    def __init__(self, circuit: "Circuit"):
+        self.circuit = circuit
+        self.names: list[str] = []
+        self.dims: list[Dimension] = []
+        self.node_index: dict[str, int] = {}
+        self.own_index: dict[tuple[str, str], int] = {}
+        references = set(REFERENCE.values())
+        from .elements.base import SHAFT
+
+        for node, domain in circuit.nodes.items():
+            if node in references:
+                continue
+            self.node_index[node] = len(self.names)
+            if domain == SHAFT:
+                self.names.append(f"w({node})")
+                self.dims.append(ANGULAR_SPEED)
+            else:
+                self.names.append(f"v({node})")
+                self.dims.append(VOLT)
+        for element in circuit.elements.values():
+            for u in element.unknowns():
+                self.own_index[(element.name, u.name)] = len(self.names)
+                self.names.append(f"{u.name}({element.name})")
+                self.dims.append(u.dimension)
+        self.n = len(self.names)
+        self._g: tuple[list, list, list] = ([], [], [])
+        self._c: tuple[list, list, list] = ([], [], [])
+        self.sources: list[tuple[int, float, Waveform]] = []
+        self.states: list[dict[int, float]] = []
+        self.q_initial = np.zeros(self.n)
+        self.current: Element | None = None
+
+    # -- indices ---------------------------------------------------------------
+    def node(self, name: str) -> int:
+        """Index of a node's potential, -1 for a reference node."""
+        return self.node_index.get(name, -1)
+
+    def own(self, local: str) -> int:
+        """Index of the current element's own extra unknown ``local``."""
+        return self.own_index[(self.current.name, local)]
+
+    def unknown_of(self, element: str, local: str) -> int:
+        """Index of another element's extra unknown (for coupling)."""
+        return self.own_index[(element, local)]
+
+    # -- linear stamps -------------------------------------------------------
+    def G(self, row: int, col: int, value: float) -> None:
+        """Add ``value`` at (row, col) of G, the linear part of f."""
+        if row >= 0 and col >= 0 and value != 0.0:
+            self._g[0].append(row)
+            self._g[1].append(col)
+            self._g[2].append(value)
+
+    def C(self, row: int, col: int, value: float) -> None:
+        """Add ``value`` at (row, col) of C, the linear part of q."""
+        if row >= 0 and col >= 0 and value != 0.0:
+            self._c[0].append(row)
+            self._c[1].append(col)
+            self._c[2].append(value)
+
+    def conductance(self, a: int, b: int, g: float) -> None:
+        """A conductance ``g`` (S) between nodes a and b."""
+        self.G(a, a, g)
+        self.G(b, b, g)
+        self.G(a, b, -g)
+        self.G(b, a, -g)
+
+    def capacitance(self, a: int, b: int, c: float) -> None:
+        """A capacitance ``c`` (F) between nodes a and b."""
+        self.C(a, a, c)
+        self.C(b, b, c)
+        self.C(a, b, -c)
+        self.C(b, a, -c)
+
+    def source(self, row: int, coef: float, waveform: Waveform) -> None:
+        """Independent term: ``f[row] -= coef * waveform(t)``."""
+        if row >= 0:
+            self.sources.append((row, coef, waveform))
+
+    def state(self, coefs: dict[int, float]) -> int:
+        """Declare a recordable charge or flux ``sum(coef * x[col])``; returns its id.
+
+        The solver can report the rate of change of a state (a capacitor's
+        current) with the same integration formula it uses for the system.
+        """
+        self.states.append({c: v for c, v in coefs.items() if c >= 0})
+        return len(self.states) - 1
+
+    def initial_charge(self, row: int, value: float) -> None:
+        """Row ``row`` of q at t = 0 for a run that starts at rest (``initial=``)."""
+        if row >= 0:
+            self.q_initial[row] += value
+
+
+@dataclass
+class BatchSlot:
+    batch: NonlinearBatch
+    jf_pos: np.ndarray
+    jq_pos: np.ndarray
+
+
+@dataclass
+class System:
+    """A compiled circuit, ready for the analyses. Built by :func:`compile_circuit`."""
+
+    circuit: "Circuit"
+    names: list[str]
+    dims: list[Dimension]
+    node_index: dict[str, int]
+    own_index: dict[tuple[str, str], int]
+    G: sp.csc_matrix
+    C: sp.csc_matrix
+    indptr: np.ndarray
+    indices: np.ndarray
+    G_data: np.ndarray
+    C_data: np.ndarray
+    batches: list[BatchSlot]
+    source_rows: np.ndarray
+    source_coefs: np.ndarray
+    source_order: np.ndarray
+    evaluators: list[BatchEvaluator]
+    source_rows_unique: bool
+    Cs: sp.csr_matrix
+    q_initial: np.ndarray
+    abstol: np.ndarray
+    diag_pos: np.ndarray
+    elements_by_name: dict[str, Element] = field(default_factory=dict)
+
+    @property
+    def n(self) -> int:
+        return len(self.names)
+
+    @property
+    def is_linear(self) -> bool:
+        """No nonlinear or event-switched element: one solve per step."""
+        return not self.batches
+
+    # -- sources -----------------------------------------------------------------
+    def source_values(self, t: float) -> np.ndarray:
+        """Values of every waveform at time t (s), in source-entry order."""
+        if not self.evaluators:
+            return np.empty(0)
+        if len(self.evaluators) == 1:
+            w = self.evaluators[0](t)
+        else:
+            w = np.concatenate([ev(t) for ev in self.evaluators])
+        return w[self.source_order]
+
+    def add_sources(self, rhs: np.ndarray, t: float) -> np.ndarray:
+        """``rhs += s(t)`` in place (s is the independent part, f = G x - s)."""
+        if self.source_rows.size:
+            vals = self.source_coefs * self.source_values(t)
+            if self.source_rows_unique:
+                rhs[self.source_rows] += vals
+            else:
+                np.add.at(rhs, self.source_rows, vals)
+        return rhs
+
+    def s(self, t: float) -> np.ndarray:
+        return self.add_sources(np.zeros(self.n), t)
+
+    # -- matrices ----------------------------------------------------------------
+    def matrix_data(self, alpha: float, jf: list[np.ndarray] | None = None,
+                    jq: list[np.ndarray] | None = None, extra_diag: np.ndarray | None = None) -> np.ndarray:
+        """CSC data of ``alpha*C + G + dfnl/dx + alpha*dqnl/dx (+ diag)``."""
+        data = self.G_data + alpha * self.C_data if alpha else self.G_data.copy()
+        if jf is not None:
+            for slot, vals in zip(self.batches, jf):
+                if vals.size:
+                    data += np.bincount(slot.jf_pos, vals, minlength=data.size)
+        if jq is not None and alpha:
+            for slot, vals in zip(self.batches, jq):
+                if vals.size:
+                    data += alpha * np.bincount(slot.jq_pos, vals, minlength=data.size)
+        if extra_diag is not None:
+            data[self.diag_pos] += extra_diag
+        return data
+
+    def matrix(self, data: np.ndarray) -> sp.csc_matrix:
+        return sp.csc_matrix((data, self.indices, self.indptr), shape=(self.n, self.n))
+
+    # -- nonlinear parts -----------------------------------------------------------
+    def evaluate_batches(self, x: np.ndarray, t: float):
+        """Nonlinear f and q (as full vectors) and the Jacobian values per batch."""
+        f = np.zeros(self.n)
+        q = np.zeros(self.n)
+        jf, jq = [], []
+        for slot in self.batches:
+            b = slot.batch
+            fv, jfv, qv, jqv = b.evaluate(x, t)
+            if b.f_rows.size:
+                f += np.bincount(b.f_rows, fv, minlength=self.n)
+            if b.q_rows.size:
+                q += np.bincount(b.q_rows, qv, minlength=self.n)
+            jf.append(np.asarray(jfv, dtype=float))
+            jq.append(np.asarray(jqv, dtype=float))
+        return f, q, jf, jq
+
+    def charges(self, x: np.ndarray, t: float = 0.0) -> np.ndarray:
+        """q(x): linear charges plus any nonlinear ones."""
+        q = self.C @ x
+        if self.batches:
+            q += self.evaluate_batches(x, t)[1]
+        return q
+
+    def corners(self, start: float, stop: float) -> np.ndarray:
+        """Every waveform corner and event time in (start, stop], sorted (s)."""
+        pts = [e.corners(start, stop) for e in self.circuit.elements.values()]
+        pts += [slot.batch.corners(start, stop) for slot in self.batches]
+        pts = [p for p in pts if len(p)]
+        return np.unique(np.concatenate(pts)) if pts else np.empty(0)
+
+    def describe_unknowns(self, indices) -> tuple[str, ...]:
+        return tuple(self.names[i] for i in indices)
+
+
+def _csc_pattern(n: int, rows: np.ndarray, cols: np.ndarray):
+    """CSC structure of the union pattern and each triplet's data position."""
+    keys = cols.astype(np.int64) * n + rows.astype(np.int64)
+    unique = np.unique(keys)
+    pos = np.searchsorted(unique, keys)
+    u_cols = unique // n
+    u_rows = unique % n
+    indptr = np.zeros(n + 1, dtype=np.int64)
+    np.add.at(indptr, u_cols + 1, 1)
+    indptr = np.cumsum(indptr)
+    return indptr.astype(np.int32), u_rows.astype(np.int32), pos, unique
+
+
+def compile_circuit(circuit: "Circuit") -> System:
+    """Index the unknowns, collect every stamp, build the shared sparse pattern."""
+    s = Stamper(circuit)
+    n = s.n
+    by_kind: dict[type, list[Element]] = defaultdict(list)
+    for element in circuit.elements.values():
+        s.current = element
+        element.stamp(s)
+        if element.Batch is not None:
+            by_kind[type(element)].append(element)
+    s.current = None
+    batches = [cls.Batch(elems, s) for cls, elems in by_kind.items()]
+
+    g_r, g_c, g_v = (np.asarray(a) for a in s._g)
+    c_r, c_c, c_v = (np.asarray(a) for a in s._c)
+    g_r = g_r.astype(np.int64) if g_r.size else np.empty(0, np.int64)
+    g_c = g_c.astype(np.int64) if g_c.size else np.empty(0, np.int64)
+    c_r = c_r.astype(np.int64) if c_r.size else np.empty(0, np.int64)
+    c_c = c_c.astype(np.int64) if c_c.size else np.empty(0, np.int64)
+    g_v = g_v.astype(float) if g_v.size else np.empty(0)
+    c_v = c_v.astype(float) if c_v.size else np.empty(0)
+    diag = np.arange(n, dtype=np.int64)
+    parts_r = [g_r, c_r, diag]
+    parts_c = [g_c, c_c, diag]
+    for b in batches:
+        parts_r += [np.asarray(b.jf_rows, np.int64), np.asarray(b.jq_rows, np.int64)]
+        parts_c += [np.asarray(b.jf_cols, np.int64), np.asarray(b.jq_cols, np.int64)]
+    rows = np.concatenate(parts_r)
+    cols = np.concatenate(parts_c)
+    indptr, indices, pos, _ = _csc_pattern(n, rows, cols)
+    nnz = indices.size
+    offsets = np.cumsum([0] + [p.size for p in parts_r])
+    g_pos = pos[offsets[0]:offsets[1]]
+    c_pos = pos[offsets[1]:offsets[2]]
+    diag_pos = pos[offsets[2]:offsets[3]]
+    slots = []
+    for k, b in enumerate(batches):
+        jf_pos = pos[offsets[3 + 2 * k]:offsets[4 + 2 * k]]
+        jq_pos = pos[offsets[4 + 2 * k]:offsets[5 + 2 * k]]
+        slots.append(BatchSlot(b, jf_pos, jq_pos))
+    G_data = np.bincount(g_pos, g_v, minlength=nnz) if g_v.size else np.zeros(nnz)
+    C_data = np.bincount(c_pos, c_v, minlength=nnz) if c_v.size else np.zeros(nnz)
+    G = sp.csc_matrix((G_data.copy(), indices.copy(), indptr.copy()), shape=(n, n))
+    C = sp.csc_matrix((C_data.copy(), indices.copy(), indptr.copy()), shape=(n, n))
+    G.eliminate_zeros()
+    C.eliminate_zeros()
+
+    # Sources: group waveforms by class so each class is evaluated in one call.
+    groups: dict[type, list[int]] = defaultdict(list)
+    for k, (_, _, wave) in enumerate(s.sources):
+        groups[type(wave)].append(k)
+    evaluators, order = [], []
+    for cls, ks in groups.items():
+        evaluators.append(BatchEvaluator([s.sources[k][2] for k in ks]))
+        order.extend(ks)
+    # source_order maps entry k -> its position in the concatenated values.
+    source_order = np.empty(len(order), dtype=np.int64)
+    source_order[np.asarray(order, dtype=np.int64)] = np.arange(len(order))
+    source_rows = np.array([r for r, _, _ in s.sources], dtype=np.int64)
+    source_coefs = np.array([c for _, c, _ in s.sources], dtype=float)
+
+    n_states = len(s.states)
+    st_r, st_c, st_v = [], [], []
+    for k, coefs in enumerate(s.states):
+        for col, v in coefs.items():
+            st_r.append(k)
+            st_c.append(col)
+            st_v.append(v)
+    Cs = sp.csr_matrix((st_v, (st_r, st_c)), shape=(n_states, n))
+    abstol = np.array([ABSTOL.get(d, DEFAULT_ABSTOL) for d in s.dims])
+    return System(
+        circuit=circuit,
+        names=s.names,
+        dims=s.dims,
+        node_index=s.node_index,
+        own_index=s.own_index,
+        G=G,
+        C=C,
+        indptr=indptr,
+        indices=indices,
+        G_data=G_data,
+        C_data=C_data,
+        batches=slots,
+        source_rows=source_rows,
+        source_coefs=source_coefs,
+        source_order=source_order,
+        evaluators=evaluators,
+        source_rows_unique=len(set(source_rows.tolist())) == len(source_rows),
+        Cs=Cs,
+        q_initial=s.q_initial,
+        abstol=abstol,
+        diag_pos=diag_pos,
+        elements_by_name=dict(circuit.elements),
+    )
+
+
+class Probe:
+    """What a run recorded, as elements see it when computing their outputs.
+
+    ``node(name)`` gives a node potential over time, ``unknown(element,
+    local)`` an element's own unknown, ``rate(state)`` the rate of change of
+    a declared state (a capacitor's current). Built twice: once in planning
+    mode, to learn which unknowns and states a run must keep, then over the
+    recorded arrays.
+    """
+
+    def __init__(self, system: System, time: np.ndarray, x: dict[int, np.ndarray] | None = None,
+                 rates: dict[int, np.ndarray] | None = None, events: dict | None = None):
+        self.system = system
+        self.time = time
+        self._x = x
+        self._rates = rates
+        self.events = events or {}
+        self.planning = x is None
+        self.need_x: set[int] = set()
+        self.need_states: set[int] = set()
+
+    def x(self, index: int) -> np.ndarray:
+        if index < 0:
+            return np.zeros_like(self.time)
+        if self.planning:
+            self.need_x.add(index)
+            return np.zeros_like(self.time)
+        return self._x[index]
+
+    def node(self, name: str) -> np.ndarray:
+        return self.x(self.system.node_index.get(name, -1))
+
+    def unknown(self, element: Element, local: str) -> np.ndarray:
+        return self.x(self.system.own_index[(element.name, local)])
+
+    def rate(self, state: int) -> np.ndarray:
+        if self.planning:
+            self.need_states.add(state)
+            return np.zeros_like(self.time)
+        return self._rates[state]

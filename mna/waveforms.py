@@ -1,0 +1,240 @@
+"""Source waveforms: values at any time, and their corners (breakpoints).
+
+A waveform is a small frozen object holding its parameters in SI units.
+``values(t)`` takes an array of times (s) and returns an array; the
+transient solver evaluates all sources of one waveform kind with one call of
+:class:`BatchEvaluator` per step, never a Python loop over sources. ``corners``
+lists the times where the waveform's slope jumps: the solver lands on each
+one exactly.
+
+Kinds (netlist syntax in grammar/README.md):
+
+- :class:`Constant`  -- a plain value
+- :class:`Step`      -- ``step(from=, to=, at=, rise=)``, a linear ramp of ``rise`` seconds
+- :class:`Pulse`     -- ``pwm(low=, high=, frequency=, duty=, rise=, fall=, delay=)``
+- :class:`Sine`      -- ``sine(amplitude=, frequency=, offset=, phase=, delay=)``
+- :class:`Piecewise` -- ``piecewise(t0: v0, t1: v1, ...)``, linear between points
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import ClassVar, Sequence
+
+import numpy as np
+
+
+class Waveform:
+    """Protocol for source waveforms. Subclasses hold parameters only."""
+
+    keyword: ClassVar[str] = ""
+
+    def values(self, t: np.ndarray) -> np.ndarray:
+        """Source value (SI) at each time in ``t`` (s)."""
+        t = np.asarray(t, dtype=float)
+        out = np.asarray(self.packed_values(self.pack([self]), t))
+        if out.ndim == t.ndim + 1:
+            out = out[0]
+        return np.broadcast_to(out, t.shape).astype(float)
+
+    def value(self, t: float) -> float:
+        """Source value (SI) at one time ``t`` (s)."""
+        return float(self.values(np.array([t]))[0])
+
+    @staticmethod
+    def pack(waves: Sequence["Waveform"]):
+        """Parameters of many waveforms of one class packed into arrays."""
+        raise NotImplementedError
+
+    @staticmethod
+    def packed_values(packed, t):
+        """Values of all packed waveforms at time ``t`` (s), one numpy call."""
+        raise NotImplementedError
+
+    def corners(self, start: float, stop: float) -> np.ndarray:
+        """Times in (start, stop] where the slope changes (s)."""
+        return np.empty(0)
+
+
+class BatchEvaluator:
+    """Evaluates many waveforms of one class at one time, with numpy only.
+
+    Built once per transient run: the parameters of every waveform of the
+    class are packed into arrays so that a step costs one vectorised call.
+    """
+
+    def __init__(self, waves: Sequence[Waveform]):
+        self.cls = type(waves[0])
+        self.waves = list(waves)
+        self._packed = self.cls.pack(self.waves)
+        self._n = len(self.waves)
+
+    def __call__(self, t: float) -> np.ndarray:
+        return np.broadcast_to(self.cls.packed_values(self._packed, t), (self._n,))
+
+
+@dataclass(frozen=True)
+class Constant(Waveform):
+    level: float
+
+    keyword: ClassVar[str] = "constant"
+
+
+    @staticmethod
+    def pack(waves):
+        return np.array([w.level for w in waves])
+
+    @staticmethod
+    def packed_values(levels, t):
+        return levels
+
+
+@dataclass(frozen=True)
+class Step(Waveform):
+    """From ``start_level`` to ``end_level`` at ``at`` (s) over ``rise`` (s)."""
+
+    start_level: float
+    end_level: float
+    at: float = 0.0
+    rise: float = 0.0
+
+    keyword: ClassVar[str] = "step"
+
+    @staticmethod
+    def pack(waves):
+        return tuple(np.array(v) for v in zip(*[(w.start_level, w.end_level, w.at, w.rise) for w in waves]))
+
+    @staticmethod
+    def packed_values(p, t):
+        lo, hi, at, rise = p
+        with np.errstate(divide="ignore", invalid="ignore"):
+            frac = np.where(rise > 0, (t - at) / np.where(rise > 0, rise, 1.0), np.where(t >= at, 1.0, 0.0))
+        return lo + (hi - lo) * np.clip(frac, 0.0, 1.0)
+
+
+    def corners(self, start, stop):
+        pts = np.array([self.at, self.at + self.rise])
+        return np.unique(pts[(pts > start) & (pts <= stop)])
+
+
+@dataclass(frozen=True)
+class Pulse(Waveform):
+    """A periodic pulse train: ``high`` for ``duty`` of each period, else ``low``.
+
+    The period starts (after ``delay``) with the rising edge; ``rise`` and
+    ``fall`` are linear edge times (s). The duty fraction is measured from
+    the start of the rising edge to the start of the falling edge.
+    """
+
+    low: float
+    high: float
+    frequency: float
+    duty: float
+    rise: float = 0.0
+    fall: float = 0.0
+    delay: float = 0.0
+
+    keyword: ClassVar[str] = "pwm"
+
+    @property
+    def period(self) -> float:
+        return 1.0 / self.frequency
+
+    @staticmethod
+    def pack(waves):
+        return tuple(
+            np.array(v)
+            for v in zip(*[(w.low, w.high, w.period, w.duty, w.rise, w.fall, w.delay) for w in waves])
+        )
+
+    @staticmethod
+    def packed_values(p, t):
+        low, high, period, duty, rise, fall, delay = p
+        tau = np.mod(t - delay, period)
+        on = duty * period
+        with np.errstate(divide="ignore", invalid="ignore"):
+            up = np.where(rise > 0, tau / np.where(rise > 0, rise, 1.0), 1.0)
+            down = np.where(fall > 0, 1.0 - (tau - on) / np.where(fall > 0, fall, 1.0), 0.0)
+        frac = np.where(tau < on, np.minimum(up, 1.0), np.clip(down, 0.0, 1.0))
+        frac = np.where(t < delay, 0.0, frac)
+        return low + (high - low) * frac
+
+
+    def corners(self, start, stop):
+        if stop <= self.delay:
+            return np.empty(0)
+        first = max(0, math.floor((start - self.delay) / self.period))
+        last = math.ceil((stop - self.delay) / self.period)
+        k = np.arange(first, last + 1, dtype=float)[:, None]
+        on = self.duty * self.period
+        offsets = np.array([0.0, self.rise, on, on + self.fall])
+        pts = (self.delay + k * self.period + offsets).ravel()
+        pts = np.unique(pts[(pts > start) & (pts <= stop)])
+        return pts
+
+
+@dataclass(frozen=True)
+class Sine(Waveform):
+    """``offset + amplitude*sin(2*pi*frequency*(t - delay) + phase)`` after ``delay``.
+
+    Before ``delay`` the value is ``offset + amplitude*sin(phase)`` (held).
+    """
+
+    amplitude: float
+    frequency: float
+    offset: float = 0.0
+    phase: float = 0.0
+    delay: float = 0.0
+
+    keyword: ClassVar[str] = "sine"
+
+    @staticmethod
+    def pack(waves):
+        return tuple(
+            np.array(v) for v in zip(*[(w.amplitude, w.frequency, w.offset, w.phase, w.delay) for w in waves])
+        )
+
+    @staticmethod
+    def packed_values(p, t):
+        amp, freq, off, phase, delay = p
+        arg = 2 * np.pi * freq * np.maximum(t - delay, 0.0) + phase
+        return off + amp * np.sin(arg)
+
+
+    def corners(self, start, stop):
+        if self.delay > start and self.delay <= stop and self.delay > 0:
+            return np.array([self.delay])
+        return np.empty(0)
+
+
+@dataclass(frozen=True)
+class Piecewise(Waveform):
+    """Linear between ``(time, value)`` points; held flat before the first and after the last."""
+
+    times: tuple[float, ...]
+    levels: tuple[float, ...]
+
+    keyword: ClassVar[str] = "piecewise"
+
+
+    @staticmethod
+    def pack(waves):
+        return [(np.array(w.times), np.array(w.levels)) for w in waves]
+
+    @staticmethod
+    def packed_values(p, t):
+        # One np.interp per piecewise source: such sources are few in practice.
+        return np.array([np.interp(t, ts, vs) for ts, vs in p])
+
+    def corners(self, start, stop):
+        pts = np.array(self.times)
+        return pts[(pts > start) & (pts <= stop)]
+
+
+WAVEFORM_KINDS: dict[str, type[Waveform]] = {
+    "step": Step,
+    "pwm": Pulse,
+    "sine": Sine,
+    "piecewise": Piecewise,
+}
