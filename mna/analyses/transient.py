@@ -134,7 +134,12 @@ def transient(circuit: "Circuit", settings: dict[str, Any], records: Sequence[Si
     h_prev: float | None = None
     uses_derivative = method.uses_derivative
     C = system.C
+    progress = settings.get("progress")  # callable(t, until), called about 5 times a second
+    next_report = _time.perf_counter() + 0.2
     for k in range(1, n_points):
+        if progress is not None and not k & 511 and _time.perf_counter() > next_report:
+            progress(float(times[k - 1]), until)
+            next_report = _time.perf_counter() + 0.2
         t = times[k]
         h = steps_q[k - 1]
         alpha, b0, b1, g0 = method.coefficients(h, h_prev)
