@@ -226,9 +226,20 @@ class NonlinearBatch:
        one numpy computation for all instances.
     5. ``limit(x_new, x_old)`` may shorten a Newton update (junction
        limiting); the default returns ``x_new``.
-    6. ``piecewise_linear = True`` declares that the Jacobian only changes
-       at events (a switch); ``update_events(t, x)`` is then called after
-       each accepted step and returns True when a state changed.
+    6. ``piecewise_linear = True`` declares that ``f`` and ``q`` are affine
+       in x between events (a switch: ``f = g(state) * v``): the engine then
+       solves each step with one factorisation reused until the next event,
+       instead of Newton iterations.
+    7. ``update_events(t, x)`` is called after every accepted time point
+       (and once at t = 0); it updates discrete states (a switch's
+       open/closed) and returns True when any changed. The engine then
+       refactors, records a second sample at the same time with the new
+       state, and restarts the integration method with a first-order step.
+    8. ``event_time(t0, x0, t1, x1)`` returns the time in (t0, t1] at which
+       a state would change (a comparator gate crossing its threshold,
+       located by interpolation), or None. The engine shortens the step to
+       land on it. Time-driven changes (a schedule, a PWM gate) are
+       ``corners`` instead, which the engine lands on exactly.
     """
 
     piecewise_linear: ClassVar[bool] = False
@@ -251,6 +262,9 @@ class NonlinearBatch:
 
     def update_events(self, t: float, x: np.ndarray) -> bool:
         return False
+
+    def event_time(self, t0: float, x0: np.ndarray, t1: float, x1: np.ndarray) -> float | None:
+        return None
 
     def corners(self, start: float, stop: float) -> np.ndarray:
         return np.empty(0)
