@@ -97,10 +97,20 @@ def singular_unknowns(system: System, A) -> tuple[str, ...]:
 
 @dataclass
 class NewtonResult:
+    """Outcome of :func:`newton`: the last iterate and how it got there.
+
+    ``worst`` names the unknowns that moved most (relative to their
+    tolerance) in the last iteration when the solve did not converge.
+    """
+
     x: np.ndarray
     iterations: int
     converged: bool
     worst: tuple[str, ...] = ()
+
+
+#: Largest number of step halvings per iteration when ``damping`` is on.
+MAX_HALVINGS = 8
 
 
 def newton(
@@ -115,12 +125,28 @@ def newton(
     reltol: float = 1e-6,
     extra_diag: np.ndarray | None = None,
     source_scale: float = 1.0,
+    damping: bool = False,
 ) -> NewtonResult:
     """Solve ``alpha*q(x) + history + f(x, t) = 0`` from the guess ``x0``.
 
     ``extra_diag`` adds conductances to the diagonal (a DC leak, a gmin
     step); ``source_scale`` multiplies every independent source (source
     stepping). Raises :class:`SingularMatrix`.
+
+    Safeguards, in the order they act on each iteration:
+
+    1. Junction limiting: every batch's ``limit(x_new, x_old)`` may shorten
+       the update (a diode's logarithmic limit). An iteration whose step was
+       limited never counts as converged.
+    2. Damping (``damping=True``): if the residual's 2-norm (SI units) grows,
+       the step is halved, up to :data:`MAX_HALVINGS` times; a halved step
+       never counts as converged. The trial point's evaluation is reused
+       for the next iteration, so an accepted full step costs nothing extra.
+    3. Convergence: every unknown moved less than ``reltol*|x| + abstol``
+       (abstol per dimension: 1 uV, 1 pA, see :data:`mna.system.ABSTOL`).
+
+    The matrix is refactored only when its values changed: a batch whose
+    Jacobian is constant between events (a switch) reuses one LU.
     """
     s = system.add_sources(np.zeros(system.n), t)
     if source_scale != 1.0:
@@ -131,8 +157,9 @@ def newton(
         rhs = s - history if history is not None else s
         factorizer.solves += 1
         return NewtonResult(lu.solve(rhs), 1, True)
-    x = x0.copy()
-    for iteration in range(1, max_iterations + 1):
+
+    def linearise(x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Residual and CSC matrix data at ``x``."""
         f_nl, q_nl, jf, jq = system.evaluate_batches(x, t)
         residual = system.G @ x + f_nl - s
         if alpha:
@@ -141,20 +168,38 @@ def newton(
             residual += history
         if extra_diag is not None:
             residual += extra_diag * x
-        data = system.matrix_data(alpha, jf, jq, extra_diag)
+        return residual, system.matrix_data(alpha, jf, jq, extra_diag)
+
+    x = np.array(x0, dtype=float)
+    residual, data = linearise(x)
+    step = scale = np.ones(system.n)
+    for iteration in range(1, max_iterations + 1):
         lu = factorizer.factor(data)
         dx = lu.solve(-residual)
         factorizer.solves += 1
         if not np.all(np.isfinite(dx)):
             return NewtonResult(x, iteration, False, ())
-        x_new = x + dx
+        full = x + dx
+        x_new = full
         for slot in system.batches:
             x_new = slot.batch.limit(x_new, x)
+        limited = x_new is not full and not np.array_equal(x_new, full)
+        damped = False
+        if damping:
+            trial = linearise(x_new)
+            norm = np.linalg.norm(residual)
+            halvings = 0
+            while np.linalg.norm(trial[0]) > norm and halvings < MAX_HALVINGS:
+                x_new = x + 0.5 * (x_new - x)
+                trial = linearise(x_new)
+                halvings += 1
+            damped = halvings > 0
         step = np.abs(x_new - x)
         scale = reltol * np.maximum(np.abs(x_new), np.abs(x)) + system.abstol
         x = x_new
-        if np.all(step <= scale):
+        if not limited and not damped and np.all(step <= scale):
             return NewtonResult(x, iteration, True)
+        residual, data = trial if damping else linearise(x)
     worst = np.argsort(-(step / scale))[:4]
     return NewtonResult(x, max_iterations, False, system.describe_unknowns(worst))
 

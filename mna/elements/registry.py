@@ -26,6 +26,7 @@ BUILTIN = {
     "inductor": "mna.elements.passive:Inductor",
     "voltage-source": "mna.elements.sources:VoltageSource",
     "current-source": "mna.elements.sources:CurrentSource",
+    "diode": "mna.elements.semiconductors:Diode",
 }
 
 _extra: dict[str, type[Element]] = {}

@@ -1,0 +1,54 @@
+"""Helpers for nonlinear batches: index patterns with reference nodes dropped.
+
+Every batch in this package fills the :class:`~mna.elements.base.NonlinearBatch`
+index arrays with the same few shapes: a branch current ``i(v)`` between two
+nodes (a diode junction, a switch), whose residual goes ``+i`` into row
+``a`` and ``-i`` into row ``b`` and whose Jacobian is the 2x2 conductance
+block. A reference node has index -1; its rows and columns are dropped here,
+once, at construction, so evaluating a batch is a few numpy calls with no
+Python loop over instances.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+
+def node_values(x: np.ndarray, index: np.ndarray) -> np.ndarray:
+    """``x[index]`` with 0 where ``index`` is -1 (a reference node)."""
+    return np.where(index >= 0, x[np.maximum(index, 0)], 0.0)
+
+
+class BranchPattern:
+    """Residual rows and Jacobian pattern of branch currents ``i(v_a - v_b)``.
+
+    ``a`` and ``b`` are integer arrays of node indices (-1 for a reference
+    node), one entry per instance. ``f_values(i)`` and ``jf_values(g)`` turn
+    per-instance currents (A) and conductances (S) into the value arrays the
+    engine expects for ``f_rows`` and ``(jf_rows, jf_cols)``.
+    """
+
+    def __init__(self, a: np.ndarray, b: np.ndarray):
+        self.a = np.asarray(a, dtype=np.int64)
+        self.b = np.asarray(b, dtype=np.int64)
+        rows = np.concatenate([self.a, self.b])
+        self._f_keep = rows >= 0
+        self.f_rows = rows[self._f_keep]
+        jr = np.concatenate([self.a, self.a, self.b, self.b])
+        jc = np.concatenate([self.a, self.b, self.a, self.b])
+        self._j_keep = (jr >= 0) & (jc >= 0)
+        self.jf_rows = jr[self._j_keep]
+        self.jf_cols = jc[self._j_keep]
+
+    def across(self, x: np.ndarray) -> np.ndarray:
+        """``v_a - v_b`` per instance."""
+        return node_values(x, self.a) - node_values(x, self.b)
+
+    def f_values(self, current: np.ndarray) -> np.ndarray:
+        """Residual values: ``+i`` at row a, ``-i`` at row b."""
+        return np.concatenate([current, -current])[self._f_keep]
+
+    def jf_values(self, conductance: np.ndarray) -> np.ndarray:
+        """Jacobian values of the 2x2 block ``[[g, -g], [-g, g]]``."""
+        g = conductance
+        return np.concatenate([g, -g, -g, g])[self._j_keep]
