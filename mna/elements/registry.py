@@ -27,6 +27,10 @@ BUILTIN = {
     "voltage-source": "mna.elements.sources:VoltageSource",
     "current-source": "mna.elements.sources:CurrentSource",
     "diode": "mna.elements.semiconductors:Diode",
+    "coupling": "mna.elements.magnetics:Coupling",
+    "transformer": "mna.elements.magnetics:Transformer",
+    "choke": "mna.elements.magnetics:Choke",
+    "solenoid": "mna.elements.magnetics:Solenoid",
 }
 
 _extra: dict[str, type[Element]] = {}
