@@ -19,13 +19,15 @@ Command-line exit status: 2 for :class:`InputError`, 3 for
 
 from __future__ import annotations
 
-from dataclasses import dataclass
-from typing import Any
+from typing import Any, NamedTuple
 
 
-@dataclass(frozen=True)
-class Span:
-    """Where a piece of netlist text came from (line and column count from 1)."""
+class Span(NamedTuple):
+    """Where a piece of netlist text came from (line and column count from 1).
+
+    A named tuple rather than a dataclass: a large netlist creates several
+    per line, and tuple construction is several times cheaper.
+    """
 
     line: int
     column: int

@@ -33,7 +33,7 @@ from .units import Quantity, UnitError, parse_quantity
 # Expression tree. Evaluated by mna.expressions, never by Python's eval.
 
 
-@dataclass(frozen=True)
+@dataclass(slots=True)
 class Number:
     """A literal quantity: ``10 mH``, ``0.98``."""
 
@@ -42,7 +42,7 @@ class Number:
     span: Span
 
 
-@dataclass(frozen=True)
+@dataclass(slots=True)
 class Name:
     """A bare name: a parameter, a node, an element or a word like ``closed``."""
 
@@ -50,7 +50,7 @@ class Name:
     span: Span
 
 
-@dataclass(frozen=True)
+@dataclass(slots=True)
 class Word:
     """A hyphenated lower-case word used as a value: ``backward-euler``."""
 
@@ -58,13 +58,13 @@ class Word:
     span: Span
 
 
-@dataclass(frozen=True)
+@dataclass(slots=True)
 class String:
     text: str
     span: Span
 
 
-@dataclass(frozen=True)
+@dataclass(slots=True)
 class Call:
     """``func(arg, ..., key=value, ..., a: b, ...)``; ``items`` keeps order."""
 
@@ -77,7 +77,7 @@ class Call:
         return {k: v for k, v, _ in self.named}
 
 
-@dataclass(frozen=True)
+@dataclass(slots=True)
 class Pair:
     """``key: value`` inside a call: a breakpoint of ``piecewise`` or ``schedule``."""
 
@@ -86,7 +86,7 @@ class Pair:
     span: Span
 
 
-@dataclass(frozen=True)
+@dataclass(slots=True)
 class BinaryOp:
     op: str  # + - * / ^
     left: "Expr"
@@ -94,13 +94,13 @@ class BinaryOp:
     span: Span
 
 
-@dataclass(frozen=True)
+@dataclass(slots=True)
 class Negate:
     operand: "Expr"
     span: Span
 
 
-@dataclass(frozen=True)
+@dataclass(slots=True)
 class Compare:
     op: str  # < <= > >=
     left: "Expr"
@@ -114,7 +114,7 @@ Expr = Union[Number, Name, Word, String, Call, Pair, BinaryOp, Negate, Compare]
 # Statements.
 
 
-@dataclass(frozen=True)
+@dataclass(slots=True)
 class Node:
     """A single terminal operand: ``rotor`` (or an element name for ``coupling``)."""
 
@@ -122,7 +122,7 @@ class Node:
     span: Span
 
 
-@dataclass(frozen=True)
+@dataclass(slots=True)
 class NodePair:
     """A two-terminal connection ``a -> b`` (reference direction a to b)."""
 
@@ -136,14 +136,14 @@ class NodePair:
 Operand = Union[Node, NodePair, Expr]
 
 
-@dataclass(frozen=True)
+@dataclass(slots=True)
 class Argument:
     key: str
     value: Expr
     span: Span  # of the key
 
 
-@dataclass(frozen=True)
+@dataclass(slots=True)
 class ElementStatement:
     kind: str
     name: str
@@ -154,21 +154,21 @@ class ElementStatement:
     name_span: Span
 
 
-@dataclass(frozen=True)
+@dataclass(slots=True)
 class LetStatement:
     name: str
     value: Expr
     span: Span
 
 
-@dataclass(frozen=True)
+@dataclass(slots=True)
 class CircuitStatement:
     name: str
     title: str | None
     span: Span
 
 
-@dataclass(frozen=True)
+@dataclass(slots=True)
 class SimulateStatement:
     analysis: str
     arguments: tuple[Argument, ...]
@@ -176,20 +176,20 @@ class SimulateStatement:
     analysis_span: Span
 
 
-@dataclass(frozen=True)
+@dataclass(slots=True)
 class RecordStatement:
     quantities: tuple[Expr, ...]
     span: Span
 
 
-@dataclass(frozen=True)
+@dataclass(slots=True)
 class MeasureStatement:
     name: str
     value: Expr
     span: Span
 
 
-@dataclass(frozen=True)
+@dataclass(slots=True)
 class CheckStatement:
     """``check LEFT OP RIGHT`` or ``check LEFT within TOLERANCE of TARGET``."""
 
@@ -244,7 +244,7 @@ def _parser() -> Lark:
 # Splitting a file into statements.
 
 
-@dataclass(frozen=True)
+@dataclass(slots=True)
 class _Chunk:
     text: str
     first_line: int  # 1-based line number of the statement's first line
@@ -457,27 +457,26 @@ def _fast_element(chunk: _Chunk, file: str | None, lines: list[str]) -> ElementS
         return None
     line = chunk.first_line
     src = lines[line - 1]
+    new = tuple.__new__  # Span(...) without the named-tuple constructor's overhead
 
-    def sp(start: int, end: int) -> Span:
-        return Span(line, start + 1, end + 1, file, src)
+    def sp(group: str) -> Span:
+        a, b = m.span(group)
+        return new(Span, (line, a + 1, b + 1, file, src))
 
+    a_span, b_span = sp("a"), sp("b")
     operands: list[Operand] = [
-        NodePair(m["a"], m["b"], sp(m.start("a"), m.end("b")), sp(m.start("a"), m.end("a")),
-                 sp(m.start("b"), m.end("b")))
+        NodePair(m["a"], m["b"], new(Span, (line, a_span[1], b_span[2], file, src)), a_span, b_span)
     ]
     if m["value"] is not None:
-        operands.append(make_number(m["value"], sp(m.start("value"), m.end("value"))))
+        operands.append(make_number(m["value"], sp("value")))
     args = []
-    base = m.start("args")
+    base = m.start("args") + 1
     for am in _FAST_ARG.finditer(m["args"]):
-        key_span = sp(base + am.start(1), base + am.end(1))
-        value_span = sp(base + am.start(2), base + am.end(2))
-        args.append(Argument(am[1], make_number(am[2], value_span), key_span))
-    kind_span = sp(m.start("kind"), m.end("kind"))
-    return ElementStatement(
-        m["kind"], m["name"], tuple(operands), tuple(args), kind_span, kind_span,
-        sp(m.start("name"), m.end("name")),
-    )
+        (k0, k1), (v0, v1) = am.span(1), am.span(2)
+        args.append(Argument(am[1], make_number(am[2], new(Span, (line, base + v0, base + v1, file, src))),
+                             new(Span, (line, base + k0, base + k1, file, src))))
+    kind_span = sp("kind")
+    return ElementStatement(m["kind"], m["name"], tuple(operands), tuple(args), kind_span, kind_span, sp("name"))
 
 
 # --------------------------------------------------------------------------

@@ -151,10 +151,13 @@ def newton(
     s = system.add_sources(np.zeros(system.n), t)
     if source_scale != 1.0:
         s *= source_scale
-    if system.is_linear:
-        data = system.matrix_data(alpha, extra_diag=extra_diag)
+    if system.is_piecewise_linear:
+        f0, q0, jf, jq = system.affine_parts(t)
+        data = system.matrix_data(alpha, jf, jq, extra_diag)
         lu = factorizer.factor(data)
         rhs = s - history if history is not None else s
+        if f0 is not None:
+            rhs = rhs - f0 - (alpha * q0 if alpha else 0.0)
         factorizer.solves += 1
         return NewtonResult(lu.solve(rhs), 1, True)
 

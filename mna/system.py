@@ -182,6 +182,20 @@ class System:
         """No nonlinear or event-switched element: one solve per step."""
         return not self.batches
 
+    @property
+    def is_piecewise_linear(self) -> bool:
+        """Every batch is affine between events: one solve per step, LU reused until an event."""
+        return all(slot.batch.piecewise_linear for slot in self.batches)
+
+    def affine_parts(self, t: float):
+        """For a piecewise-linear system: f and q offsets at x = 0 and the batch Jacobians.
+
+        Valid until the next event. Returns ``(f0, q0, jf, jq)``.
+        """
+        if not self.batches:
+            return None, None, None, None
+        return self.evaluate_batches(np.zeros(self.n), t)
+
     # -- sources -----------------------------------------------------------------
     def source_values(self, t: float) -> np.ndarray:
         """Values of every waveform at time t (s), in source-entry order."""

@@ -57,6 +57,18 @@ class Waveform:
         return np.empty(0)
 
 
+#: Stands for 1/edge time when an edge is ideal (zero time): any positive
+#: time past the edge saturates the ramp, and the value at the edge's own
+#: instant is the value before it (an ideal step is taken just after its
+#: corner, so a DC start at t = 0 sees the level before a step at 0).
+_IDEAL_EDGE = 1e290
+
+
+def _inverse_edge(edges) -> np.ndarray:
+    e = np.asarray(edges, dtype=float)
+    return np.where(e > 0, 1.0 / np.where(e > 0, e, 1.0), _IDEAL_EDGE)
+
+
 class BatchEvaluator:
     """Evaluates many waveforms of one class at one time, with numpy only.
 
@@ -71,7 +83,7 @@ class BatchEvaluator:
         self._n = len(self.waves)
 
     def __call__(self, t: float) -> np.ndarray:
-        return np.broadcast_to(self.cls.packed_values(self._packed, t), (self._n,))
+        return self.cls.packed_values(self._packed, t)
 
 
 @dataclass(frozen=True)
@@ -92,7 +104,10 @@ class Constant(Waveform):
 
 @dataclass(frozen=True)
 class Step(Waveform):
-    """From ``start_level`` to ``end_level`` at ``at`` (s) over ``rise`` (s)."""
+    """From ``start_level`` to ``end_level`` at ``at`` (s), a linear ramp over ``rise`` (s).
+
+    With ``rise = 0`` the value at ``t = at`` itself is still ``start_level``.
+    """
 
     start_level: float
     end_level: float
@@ -103,15 +118,15 @@ class Step(Waveform):
 
     @staticmethod
     def pack(waves):
-        return tuple(np.array(v) for v in zip(*[(w.start_level, w.end_level, w.at, w.rise) for w in waves]))
+        lo = np.array([w.start_level for w in waves])
+        hi = np.array([w.end_level for w in waves])
+        at = np.array([w.at for w in waves])
+        return lo, hi - lo, at, _inverse_edge([w.rise for w in waves])
 
     @staticmethod
     def packed_values(p, t):
-        lo, hi, at, rise = p
-        with np.errstate(divide="ignore", invalid="ignore"):
-            frac = np.where(rise > 0, (t - at) / np.where(rise > 0, rise, 1.0), np.where(t >= at, 1.0, 0.0))
-        return lo + (hi - lo) * np.clip(frac, 0.0, 1.0)
-
+        lo, span, at, inv_rise = p
+        return lo + span * np.clip((t - at) * inv_rise, 0.0, 1.0)
 
     def corners(self, start, stop):
         pts = np.array([self.at, self.at + self.rise])
@@ -143,23 +158,20 @@ class Pulse(Waveform):
 
     @staticmethod
     def pack(waves):
-        return tuple(
-            np.array(v)
-            for v in zip(*[(w.low, w.high, w.period, w.duty, w.rise, w.fall, w.delay) for w in waves])
-        )
+        low = np.array([w.low for w in waves])
+        span = np.array([w.high - w.low for w in waves])
+        period = np.array([w.period for w in waves])
+        on = np.array([w.duty * w.period for w in waves])
+        delay = np.array([w.delay for w in waves])
+        return (low, span, period, on, delay, _inverse_edge([w.rise for w in waves]),
+                _inverse_edge([w.fall for w in waves]))
 
     @staticmethod
     def packed_values(p, t):
-        low, high, period, duty, rise, fall, delay = p
+        low, span, period, on, delay, inv_rise, inv_fall = p
         tau = np.mod(t - delay, period)
-        on = duty * period
-        with np.errstate(divide="ignore", invalid="ignore"):
-            up = np.where(rise > 0, tau / np.where(rise > 0, rise, 1.0), 1.0)
-            down = np.where(fall > 0, 1.0 - (tau - on) / np.where(fall > 0, fall, 1.0), 0.0)
-        frac = np.where(tau < on, np.minimum(up, 1.0), np.clip(down, 0.0, 1.0))
-        frac = np.where(t < delay, 0.0, frac)
-        return low + (high - low) * frac
-
+        frac = np.clip(tau * inv_rise, 0.0, 1.0) - np.clip((tau - on) * inv_fall, 0.0, 1.0)
+        return low + span * np.where(t < delay, 0.0, frac)
 
     def corners(self, start, stop):
         if stop <= self.delay:

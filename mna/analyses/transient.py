@@ -1,18 +1,40 @@
-"""Transient analysis at a fixed step that lands exactly on every corner.
+"""Transient analysis: fixed or error-controlled steps, exact corners, events.
 
-The time grid is ``k * step`` from 0 to ``until`` with every waveform
-corner and gate event inserted; a grid point closer to a corner than a
-millionth of a step is dropped so no step is absurdly short. The step
-after a corner restarts the integration method (multistep history is not
-carried across a kink).
+**Fixed step** (``step=`` given): the time points are ``k * step`` from 0 to
+``until`` with every waveform corner and gate edge inserted; a grid point
+closer to a corner than a millionth of a step is dropped so no step is
+absurdly short.
+
+**Error-controlled steps** (no ``step=``): each step's local truncation
+error is estimated from divided differences of the charge and flux history
+(the method's own error constant times the matching derivative), measured
+against ``tolerance`` relative to the largest magnitude each charge or flux
+has reached so far, plus an absolute floor from ``voltage-tolerance`` and
+``current-tolerance``. A step whose error is too large is rejected and
+retried smaller; the next step grows by at most a factor of 2 and never
+beyond ``max-step``. Step sizes are rounded down to a ladder of quarter
+powers of two, so the few distinct matrices that result are factored once
+each and reused from a cache.
+
+**Corners and events**: every corner (waveform kink, PWM edge, schedule
+time) is landed on exactly. At a corner, and whenever a switched element
+changes state, the integration history is cut: the next step is a
+first-order (backward Euler) step, so the trapezoidal rule does not ring on
+the edge. A state change also records a second sample at the same time,
+solved just after the change (the switch voltage at 0+).
+
+**Failure**: a step whose Newton iteration does not converge is retried at
+a quarter of its length, down to ``min-step``; then the run stops with a
+:class:`~mna.errors.SimulationError` naming the time and the unknowns that
+did not settle, holding the waveforms computed so far in ``.partial``.
 
 Per step on a linear circuit the work is one sparse mat-vec for the
-history, one source evaluation per waveform kind, and one triangular solve
-with a factorisation reused for every step of the same length.
+history, one source evaluation per waveform kind, and one triangular solve.
 """
 
 from __future__ import annotations
 
+import math
 import time as _time
 from typing import TYPE_CHECKING, Any, Sequence
 
@@ -20,194 +42,496 @@ import numpy as np
 
 from ..circuit import SignalRef
 from ..errors import InputError, SimulationError
-from ..integrate import get_method
+from ..integrate import IntegrationMethod, get_method
 from ..results import Waveforms
 from ..solver import Factorizer, SingularMatrix, newton, raise_singular
 from ..system import Probe, System
+from ..units import AMPERE, VOLT
 from .common import compute_signal, dc_leak, default_signals, plan, prepare, unit_label
 from .dc import solve_dc
 
 if TYPE_CHECKING:  # pragma: no cover
     from ..circuit import Circuit
 
-#: Steps of a run that starts at rest begin with a backward-Euler step this
-#: much shorter than the first step, to find values consistent with the
-#: initial charges and fluxes (a capacitor across a source charges at once).
-REST_START_FRACTION = 1e-9
+#: A run that starts at rest, and the instant after an event, are solved
+#: with a backward-Euler step this much shorter than the current step: it
+#: finds values consistent with the charges and fluxes (a capacitor across
+#: a source charges at once; a switch voltage jumps when it opens).
+JUMP_FRACTION = 1e-9
+
+DEFAULT_TOLERANCE = 1e-3  # relative local error per step
+DEFAULT_VOLTAGE_TOLERANCE = 1e-6  # V, absolute floor of the local error
+DEFAULT_CURRENT_TOLERANCE = 1e-9  # A
+RETRY_FACTOR = 0.25
+MAX_GROWTH = 2.0
+SAFETY = 0.85
+LADDER = 4  # step sizes are rounded down to 2**(k/LADDER) * until
 
 
-def time_grid(until: float, step: float, corners: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Time points (s) and, for each, whether a corner lies there."""
+def time_grid(until: float, step: float, corners: np.ndarray) -> np.ndarray:
+    """Fixed-step time points (s): the regular grid with the corners inserted."""
     count = int(np.ceil(until / step - 1e-9))
     grid = np.arange(count + 1, dtype=float) * step
     grid[-1] = until
     corners = corners[(corners > 0) & (corners < until)]
-    if corners.size:
-        tol = step * 1e-6
-        idx = np.searchsorted(corners, grid)
-        near = np.zeros(grid.size, dtype=bool)
-        for j in (idx - 1, idx):
-            ok = (j >= 0) & (j < corners.size)
-            near[ok] |= np.abs(corners[j[ok]] - grid[ok]) < tol
-        near[0] = near[-1] = False
-        times = np.union1d(grid[~near], corners)
-    else:
-        times = grid
-    is_corner = np.zeros(times.size, dtype=bool)
-    if corners.size:
-        is_corner[np.searchsorted(times, corners)] = True
-    return times, is_corner
+    if not corners.size:
+        return grid
+    tol = step * 1e-6
+    idx = np.searchsorted(corners, grid)
+    near = np.zeros(grid.size, dtype=bool)
+    for j in (idx - 1, idx):
+        ok = (j >= 0) & (j < corners.size)
+        near[ok] |= np.abs(corners[j[ok]] - grid[ok]) < tol
+    near[0] = near[-1] = False
+    return np.union1d(grid[~near], corners)
 
 
-def _quantise(h: np.ndarray, step: float) -> np.ndarray:
-    """Make steps that differ only by rounding exactly equal (for LU reuse)."""
-    return np.round(h / step, 9) * step
+class _Recorder:
+    """Growable storage of the recorded unknowns and state rates."""
+
+    def __init__(self, n_x: int, n_rates: int, capacity: int):
+        capacity = max(capacity, 16)
+        self.t = np.empty(capacity)
+        self.x = np.empty((capacity, n_x))
+        self.r = np.empty((capacity, n_rates))
+        self.count = 0
+
+    def add(self, t: float, x: np.ndarray, rates: np.ndarray) -> None:
+        k = self.count
+        if k == self.t.size:
+            grow = max(16, k)
+            self.t = np.concatenate([self.t, np.empty(grow)])
+            self.x = np.concatenate([self.x, np.empty((grow, self.x.shape[1]))])
+            self.r = np.concatenate([self.r, np.empty((grow, self.r.shape[1]))])
+        self.t[k] = t
+        self.x[k] = x
+        self.r[k] = rates
+        self.count = k + 1
+
+
+class _Settings:
+    def __init__(self, settings: dict[str, Any]):
+        self.until = float(settings["until"])
+        if not self.until > 0:
+            raise InputError(f"until= must be positive, got {self.until:g} s")
+        step = settings.get("step")
+        self.step = None if step is None else float(step)
+        if self.step is not None and not self.step > 0:
+            raise InputError(f"step= must be positive, got {self.step:g} s")
+        if self.step is not None:
+            self.step = min(self.step, self.until)
+        self.method: IntegrationMethod = get_method(settings.get("method") or "backward-euler")
+        self.start = settings.get("start") or "dc"
+        if self.start not in ("dc", "rest"):
+            raise InputError(f"start= must be dc or rest, got {self.start!r}")
+        self.tolerance = float(settings.get("tolerance") or DEFAULT_TOLERANCE)
+        if not 0 < self.tolerance < 1:
+            raise InputError(f"tolerance= must lie between 0 and 100 %, got {self.tolerance:g}")
+        self.voltage_tolerance = float(settings.get("voltage-tolerance") or DEFAULT_VOLTAGE_TOLERANCE)
+        self.current_tolerance = float(settings.get("current-tolerance") or DEFAULT_CURRENT_TOLERANCE)
+        max_step = settings.get("max-step")
+        self.max_step = float(max_step) if max_step else self.until / 50.0
+        min_step = settings.get("min-step")
+        self.min_step = float(min_step) if min_step else self.until * 1e-13
+        sample = settings.get("sample")
+        self.sample = float(sample) if sample else None
+        if self.sample is not None and not self.sample > 0:
+            raise InputError(f"sample= must be positive, got {self.sample:g} s")
+        self.progress = settings.get("progress")
 
 
 def transient(circuit: "Circuit", settings: dict[str, Any], records: Sequence[SignalRef] | None) -> Waveforms:
     """Run a transient analysis; see :meth:`mna.Circuit.transient`."""
     started = _time.perf_counter()
-    until = float(settings["until"])
-    if not until > 0:
-        raise InputError(f"until= must be positive, got {until:g} s")
-    step = settings.get("step")
-    notes: list[str] = []
-    if step is None:
-        step = until / 1000.0
-        notes.append(
-            f"no step= given: using a fixed step of until/1000 = {step:.6g} s"
-        )
-    step = float(step)
-    if not step > 0:
-        raise InputError(f"step= must be positive, got {step:g} s")
-    if step > until:
-        step = until
-    method = get_method(settings.get("method", "backward-euler"))
-    start = settings.get("start", "dc")
-    if start not in ("dc", "rest"):
-        raise InputError(f"start= must be dc or rest, got {start!r}")
-
+    cfg = _Settings(settings)
     system, report = prepare(circuit)
     refs = list(records) if records else (list(circuit.records) or default_signals(circuit))
     need_x, need_states = plan(system, circuit, refs)
-    times, is_corner = time_grid(until, step, system.corners(0.0, until))
-    steps = np.diff(times)
-    steps_q = _quantise(steps, step)
-    n_points = times.size
+    run = _Run(system, cfg, need_x, need_states, report)
+    try:
+        run.execute()
+    except SimulationError as exc:
+        exc.partial = _finish(circuit, system, refs, run, started, cfg, "failed", exc.message)
+        raise
+    return _finish(circuit, system, refs, run, started, cfg, "ok", "")
 
-    factorizer = Factorizer(system)
-    x_rec = np.empty((n_points, len(need_x)))
-    rate_rec = np.empty((n_points, len(need_states)))
-    Cs_rec = system.Cs[need_states] if need_states else None
-    stats = {"steps": 0, "newton_iterations": 0}
 
-    def results(count: int, status: str = "ok", message: str = "") -> Waveforms:
-        return _finish(circuit, system, refs, times[:count], x_rec[:count], rate_rec[:count], need_x,
-                       need_states, factorizer, stats, started, status, message, notes)
+class _Run:
+    """One transient run: state, history and the time loop."""
 
-    # -- initial point ---------------------------------------------------------
-    if start == "dc":
-        x, its = solve_dc(system, factorizer, dc_leak(system, report), t=0.0)
-        stats["newton_iterations"] += its
-        q = system.charges(x, 0.0)
-        qdot = np.zeros(system.n)
-    else:
-        h0 = steps_q[0] * REST_START_FRACTION
-        q_init = system.q_initial
+    def __init__(self, system: System, cfg: _Settings, need_x: list[int], need_states: list[int], report):
+        self.system = system
+        self.cfg = cfg
+        self.method = cfg.method
+        self.need_x = np.asarray(need_x, dtype=np.int64)
+        self.need_states = list(need_states)
+        self.Cs_rec = system.Cs[need_states] if need_states else None
+        self.report = report
+        self.factorizer = Factorizer(system, cache_size=16)
+        capacity = int(min(cfg.until / cfg.step, 5e7)) + 16 if cfg.step else 4096
+        self.rec = _Recorder(len(need_x), len(need_states), capacity)
+        self.stats = {"accepted": 0, "rejected": 0, "newton_iterations": 0, "events": 0,
+                      "retries": 0}
+        self.event_batches = [s.batch for s in system.batches if s.batch.piecewise_linear]
+        self.pwl = system.is_piecewise_linear
+        self.version = 0
+        self._affine: dict[int, tuple] = {}
+        # Local-error control on the rows of q that hold charge or flux.
+        absC = abs(system.C)
+        atol_x = np.where(np.array([d == VOLT for d in system.dims]), cfg.voltage_tolerance,
+                          np.where(np.array([d == AMPERE for d in system.dims]), cfg.current_tolerance,
+                                   cfg.voltage_tolerance))
+        self.q_atol = absC @ atol_x
+        q_rows = set(np.flatnonzero(np.diff(system.C.tocsr().indptr)).tolist())
+        for slot in system.batches:
+            for r in np.asarray(slot.batch.q_rows).tolist():
+                q_rows.add(r)
+                self.q_atol[r] = max(self.q_atol[r], atol_x[r])
+        self.q_rows = np.array(sorted(q_rows), dtype=np.int64)
+        self.q_atol = self.q_atol[self.q_rows] if self.q_rows.size else np.empty(0)
+        self.q_scale = np.zeros(self.q_rows.size)
+
+    # -- one solve --------------------------------------------------------------
+    def solve(self, x_guess: np.ndarray, t: float, alpha: float, history: np.ndarray) -> np.ndarray | None:
+        """x at time t for ``alpha*q(x) + history + f(x, t) = 0``; None if Newton fails."""
+        system = self.system
+        if self.pwl:
+            key = (alpha, self.version)
+            lu = self.factorizer._cache.get(key)
+            affine = self._affine.get(self.version)
+            if affine is None:
+                affine = system.affine_parts(t)
+                self._affine = {self.version: affine}
+            f0, q0, jf, jq = affine
+            if lu is None:
+                lu = self.factorizer.factor(system.matrix_data(alpha, jf, jq), key=key)
+            rhs = system.add_sources(-history, t)
+            if f0 is not None:
+                rhs -= f0
+                if alpha:
+                    rhs -= alpha * q0
+            self.factorizer.solves += 1
+            self.stats["newton_iterations"] += 1
+            return lu.solve(rhs)
+        res = newton(system, self.factorizer, x_guess, t, alpha, history)
+        self.stats["newton_iterations"] += res.iterations
+        self._worst = res.worst
+        return res.x if res.converged else None
+
+    def charges(self, x: np.ndarray, t: float) -> np.ndarray:
+        return self.system.C @ x if not self.system.batches else self.system.charges(x, t)
+
+    # -- events -------------------------------------------------------------------
+    def update_events(self, t: float, x: np.ndarray) -> bool:
+        changed = False
+        for b in self.event_batches:
+            changed |= bool(b.update_events(t, x))
+        if changed:
+            self.version += 1
+            self.stats["events"] += 1
+        return changed
+
+    def event_time(self, t0, x0, t1, x1) -> float | None:
+        best = None
+        for b in self.event_batches:
+            te = b.event_time(t0, x0, t1, x1)
+            if te is not None and t0 < te < t1 and (best is None or te < best):
+                best = te
+        return best
+
+    # -- the loop -------------------------------------------------------------------
+    def record(self, t: float, x: np.ndarray, rates: np.ndarray) -> None:
+        self.rec.add(t, x[self.need_x], rates)
+
+    def initial_point(self) -> np.ndarray:
+        cfg, system = self.cfg, self.system
+        first = cfg.step or cfg.until * 1e-6
+        if cfg.start == "dc":
+            leak = dc_leak(system, self.report)
+            self.factorizer.forget()
+            for _ in range(8):  # settle comparator gates on the operating point
+                self._affine.clear()
+                x, its = solve_dc(system, self.factorizer, leak, t=0.0)
+                self.stats["newton_iterations"] += its
+                if not self.update_events(0.0, x):
+                    break
+            self._affine.clear()
+            return x
+        h0 = first * JUMP_FRACTION
+        x = self.jump(np.zeros(system.n), 0.0, h0, system.q_initial)
+        self.update_events(0.0, x)
+        return x
+
+    def jump(self, x: np.ndarray, t: float, h0: float, q: np.ndarray) -> np.ndarray:
+        """Values just after t: a tiny backward-Euler step from the charges q."""
         try:
-            res = newton(system, factorizer, np.zeros(system.n), 0.0, 1.0 / h0, -q_init / h0)
+            x_new = self.solve(x, t, 1.0 / h0, -q / h0)
         except SingularMatrix as exc:
-            raise_singular(exc, time=0.0, step=h0, what="start at rest")
-        x = res.x
-        q = system.charges(x, 0.0)
-        qdot = np.zeros(system.n)
-        factorizer.forget()
-    x_rec[0] = x[need_x]
-    qs = Cs_rec @ x if Cs_rec is not None else None
-    qs_prev = qs
-    rates = np.zeros(len(need_states))
-    rate_rec[0] = rates
-    q_prev = q
+            raise_singular(exc, time=t, step=h0, what=f"solving the instant after t = {t:.6g} s")
+        if x_new is None:
+            raise SimulationError(
+                f"no convergence just after t = {t:.6g} s (an event or the start at rest); "
+                "unknowns still moving: " + ", ".join(self._worst),
+                time=t, step=h0, unknowns=self._worst,
+            )
+        return x_new
 
-    # -- time loop --------------------------------------------------------------
-    linear = system.is_linear
-    h_prev: float | None = None
-    uses_derivative = method.uses_derivative
-    C = system.C
-    progress = settings.get("progress")  # callable(t, until), called about 5 times a second
-    next_report = _time.perf_counter() + 0.2
-    for k in range(1, n_points):
-        if progress is not None and not k & 511 and _time.perf_counter() > next_report:
-            progress(float(times[k - 1]), until)
-            next_report = _time.perf_counter() + 0.2
-        t = times[k]
-        h = steps_q[k - 1]
-        alpha, b0, b1, g0 = method.coefficients(h, h_prev)
-        history = b0 * q
-        if b1:
-            history += b1 * q_prev
-        if g0:
-            history += g0 * qdot
-        try:
-            if linear:
-                lu = factorizer.factor(system.matrix_data(alpha), key=alpha)
-                rhs = system.add_sources(-history, t)
-                x = lu.solve(rhs)
-                factorizer.solves += 1
-                stats["newton_iterations"] += 1
-            else:
-                res = newton(system, factorizer, x, t, alpha, history)
-                stats["newton_iterations"] += res.iterations
-                if not res.converged:
-                    raise SimulationError(
-                        f"no convergence at t = {t:.6g} s (step {h:.3g} s); unknowns still moving: "
-                        + ", ".join(res.worst),
-                        time=t, step=h, unknowns=res.worst,
-                    )
-                x = res.x
-        except SingularMatrix as exc:
-            partial = results(k, "failed", "singular matrix")
-            raise_singular(exc, time=t, step=h, partial=partial, what=f"transient at t = {t:.6g} s")
-        except SimulationError as exc:
-            exc.partial = results(k, "failed", exc.message)
-            raise
+    def execute(self) -> None:
+        cfg, system, method = self.cfg, self.system, self.method
+        until = cfg.until
+        corners = system.corners(0.0, until)
+        corners = corners[(corners > 0) & (corners < until)]
+        fixed = cfg.step is not None
+        grid = time_grid(until, cfg.step, corners) if fixed else None
+        grid_k = 1
+
+        x = self.initial_point()
+        q = self.charges(x, 0.0)
         q_prev = q
-        q = C @ x if linear else system.charges(x, t)
-        if uses_derivative or g0:
-            qdot = alpha * q + history
-        if Cs_rec is not None:
-            qs_new = Cs_rec @ x
-            rates = alpha * qs_new + b0 * qs + (b1 * qs_prev if b1 else 0.0) + (g0 * rates if g0 else 0.0)
-            qs_prev, qs = qs, qs_new
-            rate_rec[k] = rates
-        x_rec[k] = x[need_x]
-        h_prev = None if is_corner[k] else h
-        stats["steps"] += 1
-    return results(n_points)
+        qdot = np.zeros(system.n)
+        Cs = self.Cs_rec
+        qs = Cs @ x if Cs is not None else np.empty(0)
+        qs_prev = qs
+        rates = np.zeros(qs.size)
+        self.record(0.0, x, rates)
+        # History of accepted (t, q-rows) since the last restart, for error estimates.
+        hist_t: list[float] = [0.0]
+        hist_q: list[np.ndarray] = [q[self.q_rows]]
+        self.q_scale = np.abs(hist_q[0])
+
+        t = 0.0
+        h_prev: float | None = None
+        order = method.order
+        if fixed:
+            h = cfg.step
+        else:
+            gap = corners[0] if corners.size else until
+            h = min(cfg.max_step, gap, until) * 1e-3
+        corner_i = 0
+        smallest = math.inf
+        largest = 0.0
+        progress = cfg.progress
+        next_report = _time.perf_counter() + 0.2
+        uses_qdot = method.uses_derivative
+        C = system.C
+        plain = not system.batches
+        adaptive = not fixed
+        landing = False
+
+        while t < until:
+            if progress is not None and _time.perf_counter() > next_report:
+                progress(t, until)
+                next_report = _time.perf_counter() + 0.2
+            # -- choose the next time point
+            while corner_i < corners.size and corners[corner_i] <= t * (1 + 1e-15):
+                corner_i += 1
+            next_corner = corners[corner_i] if corner_i < corners.size else until
+            if fixed:
+                target = grid[grid_k]
+                if h >= (target - t) * (1 - 1e-9):
+                    t_new, h_try, landing = target, target - t, True
+                else:
+                    t_new, h_try, landing = t + h, h, False
+                h_try = _snap(h_try, cfg.step)
+            else:
+                h_try = min(h, cfg.max_step)
+                gap = next_corner - t
+                if h_try >= gap * (1 - 1e-9):
+                    h_try, t_new, landing = gap, next_corner, True
+                else:
+                    if h_try > 0.5 * gap:
+                        h_try = 0.5 * gap
+                    h_try = _ladder(h_try, until)
+                    t_new, landing = t + h_try, False
+            # -- solve
+            alpha, b0, b1, g0 = method.coefficients(h_try, h_prev)
+            history = b0 * q
+            if b1:
+                history = history + b1 * q_prev
+            if g0:
+                history = history + g0 * qdot
+            try:
+                x_new = self.solve(x, t_new, alpha, history)
+            except SingularMatrix as exc:
+                raise_singular(exc, time=t_new, step=h_try, what=f"transient at t = {t_new:.6g} s")
+            if x_new is None:
+                self.stats["retries"] += 1
+                h = h_try * RETRY_FACTOR
+                if h < cfg.min_step:
+                    raise SimulationError(
+                        f"no convergence at t = {t_new:.6g} s even with a step of {h_try:.3g} s; "
+                        "unknowns still moving: " + ", ".join(self._worst),
+                        time=t_new, step=h_try, unknowns=tuple(self._worst),
+                    )
+                continue
+            # -- events inside the step: land on the first one
+            if self.event_batches:
+                te = self.event_time(t, x, t_new, x_new)
+                if te is not None and te - t > max(cfg.min_step, 1e-6 * h_try) and t_new - te > 1e-9 * h_try:
+                    h = te - t
+                    if fixed:
+                        grid = np.insert(grid, grid_k, te)
+                    else:
+                        corners = np.insert(corners, corner_i, te)
+                    continue
+            q_new = C @ x_new if plain else self.charges(x_new, t_new)
+            # -- local error (adaptive runs only)
+            h_next = h
+            if not fixed and self.q_rows.size:
+                err = self.local_error(hist_t, hist_q, t_new, q_new[self.q_rows], h_try, h_prev, order)
+                if err is not None:
+                    factor = SAFETY * (max(err, 1e-10) ** (-1.0 / (order + 1)))
+                    if err > 1.0:
+                        self.stats["rejected"] += 1
+                        h = h_try * max(0.2, min(factor, 0.9))
+                        if h < cfg.min_step:
+                            raise SimulationError(
+                                f"the step fell below min-step ({cfg.min_step:.3g} s) at t = {t:.6g} s "
+                                "while meeting the error tolerance; loosen tolerance= or check the circuit "
+                                "for an unintended instant jump",
+                                time=t, step=h,
+                            )
+                        continue
+                    h_next = h_try * min(MAX_GROWTH, factor)
+                else:
+                    h_next = h_try * MAX_GROWTH if len(hist_t) > 1 else h_try * 1.5
+            # -- accept
+            q_prev, q = q, q_new
+            if uses_qdot or g0:
+                qdot = alpha * q + history
+            if Cs is not None:
+                qs_new = Cs @ x_new
+                rates = alpha * qs_new + b0 * qs + (b1 * qs_prev if b1 else 0.0) + (g0 * rates if g0 else 0.0)
+                qs_prev, qs = qs, qs_new
+            x = x_new
+            t = t_new
+            self.record(t, x, rates)
+            self.stats["accepted"] += 1
+            smallest = min(smallest, h_try)
+            largest = max(largest, h_try)
+            if adaptive:
+                hist_t.append(t)
+                hist_q.append(q[self.q_rows])
+                if len(hist_t) > 4:
+                    del hist_t[0], hist_q[0]
+                if self.q_rows.size:
+                    np.maximum(self.q_scale, np.abs(hist_q[-1]), out=self.q_scale)
+            h_prev = h_try
+            h = h_next if not fixed else cfg.step
+            if fixed and landing:
+                grid_k += 1
+            # -- corners and events cut the history
+            restart = landing and (fixed and _is_corner(t, corners) or not fixed)
+            if self.event_batches and self.update_events(t, x):
+                x = self.jump(x, t, max(h_try, cfg.min_step) * JUMP_FRACTION, q)
+                q_jump = self.charges(x, t)
+                if Cs is not None:
+                    qs_jump = Cs @ x
+                    rates = (qs_jump - qs) / (max(h_try, cfg.min_step) * JUMP_FRACTION)
+                    qs = qs_prev = qs_jump
+                q = q_prev = q_jump
+                self.record(t, x, rates)
+                restart = True
+            if restart:
+                h_prev = None
+                qdot = np.zeros(system.n)
+                if adaptive:
+                    hist_t, hist_q = [t], [q[self.q_rows]]
+                if not fixed:
+                    gap = (corners[corner_i + 1] if corner_i + 1 < corners.size else until) - t
+                    h = min(h, max(gap, cfg.min_step) * 0.05, cfg.max_step)
+            if t >= until * (1 - 1e-14):
+                break
+        self.smallest, self.largest = smallest, largest
+
+    def local_error(self, hist_t, hist_q, t_new, q_new, h, h_prev, order) -> float | None:
+        """Largest local truncation error over the charge and flux rows, in units of their tolerance."""
+        ts = hist_t + [t_new]
+        qs = hist_q + [q_new]
+        need = order + 2
+        if len(ts) < 3 or h_prev is None:
+            return None
+        if len(ts) < need:
+            # Not enough history for the method's own order: use a first-order estimate.
+            lte = h * h * _divided_difference(ts[-3:], qs[-3:])
+        elif order == 1:
+            lte = h * h * _divided_difference(ts[-3:], qs[-3:])
+        else:
+            dd3 = _divided_difference(ts[-4:], qs[-4:])
+            if self.method.name == "bdf2":
+                w = h / h_prev
+                lte = ((1 + w) ** 2 / (w * (1 + 2 * w))) * h ** 3 * dd3
+            else:
+                # trapezoidal: (h^3/12) q''' with q''' = 6 * dd3
+                lte = 0.5 * h ** 3 * dd3
+        tol = self.cfg.tolerance * np.maximum(self.q_scale, np.abs(q_new)) + self.q_atol
+        return float(np.max(np.abs(lte) / tol))
 
 
-def _finish(circuit, system: System, refs, time, x_rec, rate_rec, need_x, need_states, factorizer,
-            stats, started, status, message, notes) -> Waveforms:
+def _divided_difference(ts: list[float], qs: list[np.ndarray]) -> np.ndarray:
+    """The highest divided difference through the given points (vector-valued)."""
+    table = list(qs)
+    n = len(ts)
+    for level in range(1, n):
+        table = [(table[i + 1] - table[i]) / (ts[i + level] - ts[i]) for i in range(n - level)]
+    return table[0]
+
+
+def _snap(h: float, step: float) -> float:
+    """Make steps that differ from ``step`` only by rounding exactly equal (LU reuse)."""
+    return step if abs(h - step) <= 1e-9 * step else h
+
+
+def _ladder(h: float, until: float) -> float:
+    """Round a step down to the ladder 2**(k/LADDER) * until (few distinct matrices)."""
+    k = math.floor(LADDER * math.log2(h / until) + 1e-9)
+    return until * 2.0 ** (k / LADDER)
+
+
+def _is_corner(t: float, corners: np.ndarray) -> bool:
+    if not corners.size:
+        return False
+    i = np.searchsorted(corners, t)
+    for j in (i - 1, i):
+        if 0 <= j < corners.size and abs(corners[j] - t) <= 1e-12 * max(1.0, abs(t)):
+            return True
+    return False
+
+
+def _finish(circuit, system: System, refs, run: _Run, started, cfg: _Settings, status, message) -> Waveforms:
+    rec = run.rec
+    n = rec.count
+    time = rec.t[:n].copy()
     probe = Probe(
         system,
         time,
-        x={idx: x_rec[:, j] for j, idx in enumerate(need_x)},
-        rates={sidx: rate_rec[:, j] for j, sidx in enumerate(need_states)},
+        x={int(idx): rec.x[:n, j] for j, idx in enumerate(run.need_x)},
+        rates={sid: rec.r[:n, j] for j, sid in enumerate(run.need_states)},
     )
     # (+ 0.0 turns -0.0 into 0.0 so reports never show "-0")
     signals = {ref.label: compute_signal(ref, circuit, probe) + 0.0 for ref in refs}
-    steps = np.diff(time)
+    notes = []
+    if cfg.sample is not None and n > 1:
+        time, signals = _resample(time, signals, cfg.sample, run.method.order)
+    steps = np.diff(rec.t[:n])
+    steps = steps[steps > 0]
     statistics = {
         "points": int(time.size),
-        "steps": int(stats["steps"]),
-        "newton_iterations": int(stats["newton_iterations"]),
-        "factorizations": int(factorizer.factorizations),
-        "solves": int(factorizer.solves),
+        "accepted_steps": int(run.stats["accepted"]),
+        "rejected_steps": int(run.stats["rejected"]),
+        "retried_steps": int(run.stats["retries"]),
+        "events": int(run.stats["events"]),
+        "newton_iterations": int(run.stats["newton_iterations"]),
+        "factorizations": int(run.factorizer.factorizations),
+        "solves": int(run.factorizer.solves),
         "smallest_step_s": float(steps.min()) if steps.size else 0.0,
         "largest_step_s": float(steps.max()) if steps.size else 0.0,
+        "method": run.method.name,
+        "step_control": "fixed" if cfg.step is not None else "error-controlled",
         "unknowns": system.n,
         "wall_time_s": _time.perf_counter() - started,
     }
+    statistics["steps"] = statistics["accepted_steps"]
     return Waveforms(
         time=time,
         signals=signals,
@@ -217,3 +541,42 @@ def _finish(circuit, system: System, refs, time, x_rec, rate_rec, need_x, need_s
         status=status,
         message=message,
     )
+
+
+def _resample(time: np.ndarray, signals: dict[str, np.ndarray], sample: float, order: int):
+    """Signals on a uniform grid, interpolated with the method's order.
+
+    Linear interpolation for first-order methods; for second-order methods a
+    quadratic through the two neighbours and the nearest third point of the
+    same smooth segment (never across a repeated time, i.e. an event).
+    """
+    grid = np.arange(0.0, time[-1] + sample * 1e-9, sample)
+    out = {}
+    # Index of the interval [time[i], time[i+1]] holding each sample (right-continuous).
+    i = np.clip(np.searchsorted(time, grid, side="right") - 1, 0, time.size - 2)
+    t0, t1 = time[i], time[i + 1]
+    same = t1 <= t0  # a repeated time: take the later value
+    for label, y in signals.items():
+        y0, y1 = y[i], y[i + 1]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            frac = np.where(same, 1.0, (grid - t0) / np.where(same, 1.0, t1 - t0))
+        lin = y0 + (y1 - y0) * frac
+        if order >= 2 and time.size >= 3:
+            j = np.where(i + 2 < time.size, i + 2, i - 1)
+            j = np.clip(j, 0, time.size - 1)
+            t2, y2 = time[j], y[j]
+            ok = (t2 != t0) & (t2 != t1) & ~same
+            # A third point across a repeated time belongs to another segment.
+            lo = np.minimum(np.minimum(i, i + 1), j)
+            hi = np.maximum(np.maximum(i, i + 1), j)
+            dup = np.zeros(time.size, dtype=bool)
+            dup[1:] = np.diff(time) <= 0
+            cum = np.cumsum(dup)
+            ok &= (cum[hi] - cum[lo]) == 0
+            with np.errstate(invalid="ignore", divide="ignore"):
+                quad = (y0 * (grid - t1) * (grid - t2) / ((t0 - t1) * (t0 - t2))
+                        + y1 * (grid - t0) * (grid - t2) / ((t1 - t0) * (t1 - t2))
+                        + y2 * (grid - t0) * (grid - t1) / ((t2 - t0) * (t2 - t1)))
+            lin = np.where(ok, quad, lin)
+        out[label] = lin
+    return grid, out
