@@ -31,6 +31,7 @@ BUILTIN = {
     "transformer": "mna.elements.magnetics:Transformer",
     "choke": "mna.elements.magnetics:Choke",
     "solenoid": "mna.elements.magnetics:Solenoid",
+    "switch": "mna.elements.switches:Switch",
 }
 
 _extra: dict[str, type[Element]] = {}
