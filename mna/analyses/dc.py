@@ -30,6 +30,9 @@ GMIN_END = 1e-12
 GMIN_FACTOR = 10.0
 #: Source stepping: the smallest fraction by which the sources may be raised.
 SOURCE_STEP_MIN = 1e-4
+#: Most solves one gmin or source-stepping ladder may take (keeps a hopeless
+#: case from running for minutes before it reports).
+MAX_LADDER_STEPS = 200
 #: Most re-solves while switch gates settle into a consistent state.
 MAX_EVENT_ROUNDS = 16
 
@@ -97,10 +100,10 @@ def _solve_point(system: System, factorizer: Factorizer, leak: np.ndarray | None
         first_failure = first_failure or result.worst
         if system.is_linear:
             break
-    for method, ladder in (("gmin stepping", _gmin_stepping), ("source stepping", _source_stepping)):
+    for method, ladder in (("gmin stepping", gmin_stepping), ("source stepping", source_stepping)):
         try:
             x, its = ladder(system, factorizer, leak, t, x0)
-        except _LadderFailed as exc:
+        except LadderFailed as exc:
             total += exc.iterations
             continue
         return x, total + its, method
@@ -114,7 +117,9 @@ def _solve_point(system: System, factorizer: Factorizer, leak: np.ndarray | None
     )
 
 
-class _LadderFailed(Exception):
+class LadderFailed(Exception):
+    """A continuation ladder (gmin or source stepping) could not reach its end."""
+
     def __init__(self, iterations: int):
         self.iterations = iterations
 
@@ -134,18 +139,24 @@ def _attempt(system, factorizer, x, t, leak_diag, scale=1.0):
         return None
 
 
-def _gmin_stepping(system: System, factorizer: Factorizer, leak, t: float, x0: np.ndarray):
-    """Step a node-to-reference conductance down to nothing; (x, iterations)."""
+def gmin_stepping(system: System, factorizer: Factorizer, leak: np.ndarray | None, t: float,
+                  x0: np.ndarray) -> tuple[np.ndarray, int]:
+    """Step a node-to-reference conductance down to nothing; (x, Newton iterations).
+
+    Raises :class:`LadderFailed` when even a very small reduction fails.
+    """
     total = 0
     x = x0
     gmin = GMIN_START
     factor = GMIN_FACTOR
     result = _attempt(system, factorizer, x, t, _node_diag(system, gmin, leak))
     if result is None or not result.converged:
-        raise _LadderFailed(result.iterations if result else 0)
+        raise LadderFailed(result.iterations if result else 0)
     total += result.iterations
     x = result.x
-    while gmin > 0:
+    for _ in range(MAX_LADDER_STEPS):
+        if gmin == 0:
+            return x, total
         trial = gmin / factor if gmin / factor >= GMIN_END else 0.0
         diag = _node_diag(system, trial, leak) if trial else leak
         result = _attempt(system, factorizer, x, t, diag)
@@ -156,17 +167,26 @@ def _gmin_stepping(system: System, factorizer: Factorizer, leak, t: float, x0: n
             continue
         factor = np.sqrt(factor)
         if factor < 1.01:
-            raise _LadderFailed(total)
-    return x, total
+            break
+    if gmin == 0:
+        return x, total
+    raise LadderFailed(total)
 
 
-def _source_stepping(system: System, factorizer: Factorizer, leak, t: float, x0: np.ndarray):
-    """Raise every source from 0 to its full value; (x, iterations)."""
+def source_stepping(system: System, factorizer: Factorizer, leak: np.ndarray | None, t: float,
+                    x0: np.ndarray) -> tuple[np.ndarray, int]:
+    """Raise every source from 0 to its full value; (x, Newton iterations).
+
+    ``x0`` is ignored: the ladder starts from the all-zero point, the
+    solution with every source off. Raises :class:`LadderFailed`.
+    """
     total = 0
     x = np.zeros(system.n)
     done = 0.0
     step = 0.1
-    while done < 1.0:
+    for _ in range(MAX_LADDER_STEPS):
+        if done >= 1.0:
+            return x, total
         target = min(1.0, done + step)
         result = _attempt(system, factorizer, x, t, leak, scale=target)
         total += result.iterations if result else 0
@@ -176,8 +196,10 @@ def _source_stepping(system: System, factorizer: Factorizer, leak, t: float, x0:
             continue
         step /= 2.0
         if step < SOURCE_STEP_MIN:
-            raise _LadderFailed(total)
-    return x, total
+            break
+    if done >= 1.0:
+        return x, total
+    raise LadderFailed(total)
 
 
 def operating_point(circuit: "Circuit") -> OperatingPoint:
