@@ -29,7 +29,11 @@ def solve_dc(system: System, factorizer: Factorizer, leak: np.ndarray | None, t:
     try:
         result = newton(system, factorizer, x0, t, 0.0, None, extra_diag=leak, max_iterations=100)
     except SingularMatrix as exc:
-        raise_singular(exc, time=t, step=None, what="DC operating point")
+        what = "DC operating point"
+        if exc.unknowns and all(u.startswith("i(") for u in exc.unknowns):
+            what += (" (currents in a loop of inductors or voltage sources with no resistance "
+                     "have no DC solution; give a winding resistance=)")
+        raise_singular(exc, time=t, step=None, what=what)
     if not result.converged:
         raise SimulationError(
             "DC operating point: Newton's method did not converge; unknowns still moving: "

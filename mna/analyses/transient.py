@@ -284,6 +284,7 @@ class _Run:
         corners = corners[(corners > 0) & (corners < until)]
         fixed = cfg.step is not None
         grid = time_grid(until, cfg.step, corners) if fixed else None
+        grid_corner = _corner_flags(grid, corners) if fixed else None
         grid_k = 1
 
         x = self.initial_point()
@@ -374,6 +375,7 @@ class _Run:
                     h = te - t
                     if fixed:
                         grid = np.insert(grid, grid_k, te)
+                        grid_corner = np.insert(grid_corner, grid_k, False)
                     else:
                         corners = np.insert(corners, corner_i, te)
                     continue
@@ -425,7 +427,7 @@ class _Run:
             if fixed and landing:
                 grid_k += 1
             # -- corners and events cut the history
-            restart = landing and (fixed and _is_corner(t, corners) or not fixed)
+            restart = landing and (not fixed or grid_corner[grid_k - 1])
             if self.event_batches and self.update_events(t, x):
                 x = self.jump(x, t, max(h_try, cfg.min_step) * JUMP_FRACTION, q)
                 q_jump = self.charges(x, t)
@@ -495,14 +497,13 @@ def _ladder(h: float, until: float) -> float:
     return until * 2.0 ** (k / LADDER)
 
 
-def _is_corner(t: float, corners: np.ndarray) -> bool:
-    if not corners.size:
-        return False
-    i = np.searchsorted(corners, t)
-    for j in (i - 1, i):
-        if 0 <= j < corners.size and abs(corners[j] - t) <= 1e-12 * max(1.0, abs(t)):
-            return True
-    return False
+def _corner_flags(grid: np.ndarray, corners: np.ndarray) -> np.ndarray:
+    """For each grid point, whether it is a corner (where the history is cut)."""
+    flags = np.zeros(grid.size, dtype=bool)
+    if corners.size:
+        idx = np.clip(np.searchsorted(grid, corners), 0, grid.size - 1)
+        flags[idx[grid[idx] == corners]] = True
+    return flags
 
 
 def _finish(circuit, system: System, refs, run: _Run, started, cfg: _Settings, status, message) -> Waveforms:
