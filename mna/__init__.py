@@ -22,11 +22,42 @@ Embedding::
     res.time, res["i(Lcoil)"]
 """
 
-from .circuit import Circuit, load, parse
-from .elements.base import Arg, Branch, Element, NonlinearBatch, Port, Unknown
-from .elements.registry import register
-from .errors import InputError, MnaError, SimulationError, TopologyError
-from .results import OperatingPoint, Waveforms
+# The public names are imported on first use (PEP 562), so that the command
+# line's --help does not pay for numpy, scipy and lark.
+_EXPORTS = {
+    "Circuit": "mna.circuit",
+    "load": "mna.circuit",
+    "parse": "mna.circuit",
+    "Arg": "mna.elements.base",
+    "Branch": "mna.elements.base",
+    "Element": "mna.elements.base",
+    "NonlinearBatch": "mna.elements.base",
+    "Port": "mna.elements.base",
+    "Unknown": "mna.elements.base",
+    "register": "mna.elements.registry",
+    "InputError": "mna.errors",
+    "MnaError": "mna.errors",
+    "SimulationError": "mna.errors",
+    "TopologyError": "mna.errors",
+    "OperatingPoint": "mna.results",
+    "Waveforms": "mna.results",
+}
+
+
+def __getattr__(name: str):
+    module = _EXPORTS.get(name)
+    if module is None:
+        raise AttributeError(f"module 'mna' has no attribute {name!r}")
+    import importlib
+
+    value = getattr(importlib.import_module(module), name)
+    globals()[name] = value
+    return value
+
+
+def __dir__():
+    return sorted(list(globals()) + list(_EXPORTS))
+
 
 __version__ = "0.1.0"
 

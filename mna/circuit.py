@@ -35,7 +35,7 @@ from .elements.base import ELEMENT, ELECTRICAL, REFERENCE, SHAFT, Arg, Element
 from .elements.registry import lookup, suggest
 from .errors import InputError, NetlistSyntaxError, Span, UnitsError, UnknownNameError
 from .expressions import evaluate
-from .units import DIMENSIONLESS, HERTZ, SECOND, Dimension, Quantity, describe, parse_quantity
+from .units import AMPERE, DIMENSIONLESS, HERTZ, SECOND, VOLT, Dimension, Quantity, describe, parse_quantity
 from .units import UnitError
 from .waveforms import Constant, Piecewise, Pulse, Sine, Step, Waveform
 
@@ -78,6 +78,16 @@ TRANSIENT_SETTINGS: dict[str, Arg] = {
     "method": Arg("method", None, default="backward-euler", kind="choice",
                   choices=("backward-euler", "trapezoidal", "bdf2")),
     "start": Arg("start", None, default="dc", kind="choice", choices=("dc", "rest")),
+    "tolerance": Arg("tolerance", DIMENSIONLESS, default=None, positive=True,
+                     doc="relative local error per step (error-controlled runs)"),
+    "voltage-tolerance": Arg("voltage-tolerance", VOLT, default=None, positive=True,
+                             doc="absolute floor of the local error on voltages"),
+    "current-tolerance": Arg("current-tolerance", AMPERE, default=None, positive=True,
+                             doc="absolute floor of the local error on currents"),
+    "max-step": Arg("max-step", SECOND, default=None, positive=True, doc="largest step"),
+    "min-step": Arg("min-step", SECOND, default=None, positive=True, doc="smallest step before failing"),
+    "sample": Arg("sample", SECOND, default=None, positive=True,
+                  doc="also resample the results on a uniform grid of this spacing"),
 }
 ANALYSES: dict[str, dict[str, Arg]] = {"dc": {}, "transient": TRANSIENT_SETTINGS}
 

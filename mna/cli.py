@@ -128,7 +128,11 @@ def cmd_run(args) -> int:
                 say(f"  transient to {_fmt(float(result.time[-1]), 's')}: {st['steps']} steps, "
                     f"{st['factorizations']} factorisation{'s' if st['factorizations'] != 1 else ''}, "
                     f"{st['wall_time_s']:.3g} s")
-        data = summary(circuit, results, outputs)
+        extra = None
+        if failure is not None:
+            extra = {"status": "failed", "failure": {"message": failure.message, "time_s": failure.time,
+                                                     "unknowns": list(failure.unknowns)}}
+        data = summary(circuit, results, outputs, extra)
         write_json(out_dir / "summary.json", data)
         outputs["json"] = str(out_dir / "summary.json")
     except OSError as exc:

@@ -17,9 +17,9 @@ Rules for a new method (a subclass):
 1. Set ``name`` (the netlist word), ``order`` and ``error_constant`` (the
    leading coefficient of its local truncation error, for step control).
 2. Implement ``coefficients(h, h_prev)`` returning ``(alpha, b0, b1, g0)``
-   for a step ``h`` after a step ``h_prev`` (``None`` on the first step
-   after a start or a discontinuity, where a multistep method must fall
-   back to a one-step formula).
+   for a step ``h`` after a step ``h_prev``. ``h_prev`` is ``None`` for the
+   first ``restart_steps`` steps after a start or a discontinuity, where the
+   method must fall back to a one-step, first-order formula.
 3. Hold no state: the engine owns the history.
 
 Methods that differ only by coefficients are subclasses holding data.
@@ -37,6 +37,8 @@ class IntegrationMethod:
     order: ClassVar[int] = 1
     error_constant: ClassVar[float] = 0.5
     uses_derivative: ClassVar[bool] = False
+    #: Backward-Euler steps taken after a start, a corner or an event.
+    restart_steps: ClassVar[int] = 1
 
     def coefficients(self, h: float, h_prev: float | None) -> tuple[float, float, float, float]:
         raise NotImplementedError
@@ -60,14 +62,18 @@ class Trapezoidal(IntegrationMethod):
     """Second order, A-stable, no numerical damping:
     ``(qdot[n+1] + qdot[n]) / 2 = (q[n+1] - q[n]) / h``.
 
-    The first step after a start or a corner is a backward-Euler step, so
-    the rule does not ring on a discontinuity.
+    The first two steps after a start, a corner or an event are
+    backward-Euler steps: the rule has |R| -> 1 on stiff modes, so a
+    derivative left over from before a discontinuity (or from a mode faster
+    than the step) would ring, alternating in sign, for the rest of the run.
+    Two damped steps leave a derivative consistent with the slow solution.
     """
 
     name = "trapezoidal"
     order = 2
     error_constant = 1.0 / 12.0  # LTE = -(h^3/12) x'''
     uses_derivative = True
+    restart_steps = 2
 
     def coefficients(self, h, h_prev):
         if h_prev is None:  # no trustworthy qdot[n] after a start or a corner

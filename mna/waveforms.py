@@ -62,6 +62,12 @@ class Waveform:
 #: instant is the value before it (an ideal step is taken just after its
 #: corner, so a DC start at t = 0 sees the level before a step at 0).
 _IDEAL_EDGE = 1e290
+_EDGE_GUARD = 1e-9
+
+
+def _unit_ramp(x):
+    """x clipped to [0, 1] (np.clip's wrapper costs more than the work on short arrays)."""
+    return np.minimum(np.maximum(x, 0.0), 1.0)
 
 
 def _inverse_edge(edges) -> np.ndarray:
@@ -126,7 +132,7 @@ class Step(Waveform):
     @staticmethod
     def packed_values(p, t):
         lo, span, at, inv_rise = p
-        return lo + span * np.clip((t - at) * inv_rise, 0.0, 1.0)
+        return lo + span * _unit_ramp((t - at) * inv_rise)
 
     def corners(self, start, stop):
         pts = np.array([self.at, self.at + self.rise])
@@ -169,8 +175,12 @@ class Pulse(Waveform):
     @staticmethod
     def packed_values(p, t):
         low, span, period, on, delay, inv_rise, inv_fall = p
-        tau = np.mod(t - delay, period)
-        frac = np.clip(tau * inv_rise, 0.0, 1.0) - np.clip((tau - on) * inv_fall, 0.0, 1.0)
+        # The phase within the period, pulled back by a billionth of a period
+        # so that a time computed as delay + k*period (a corner) never lands a
+        # rounding error past an ideal edge: the value at an edge's own instant
+        # is the value before it, as for an ideal step.
+        tau = np.mod(t - delay, period) - _EDGE_GUARD * period
+        frac = _unit_ramp(tau * inv_rise) - _unit_ramp((tau - on) * inv_fall)
         return low + span * np.where(t < delay, 0.0, frac)
 
     def corners(self, start, stop):

@@ -91,7 +91,7 @@ def _solve_point(system: System, factorizer: Factorizer, leak: np.ndarray | None
                             damping=damping)
         except SingularMatrix as exc:
             if system.is_linear:
-                raise_singular(exc, time=t, step=None, what="DC operating point")
+                _raise_dc_singular(exc, t)
             singular = singular or exc
             continue
         total += result.iterations
@@ -108,13 +108,21 @@ def _solve_point(system: System, factorizer: Factorizer, leak: np.ndarray | None
             continue
         return x, total + its, method
     if singular is not None and not first_failure:
-        raise_singular(singular, time=t, step=None, what="DC operating point")
+        _raise_dc_singular(singular, t)
     raise SimulationError(
         "DC operating point: no convergence by Newton's method, damped Newton, gmin stepping or "
         "source stepping; unknowns still moving: " + (", ".join(first_failure) or "(unknown)"),
         time=t,
         unknowns=first_failure,
     )
+
+
+def _raise_dc_singular(exc: SingularMatrix, t: float) -> None:
+    what = "DC operating point"
+    if exc.unknowns and all(u.startswith("i(") for u in exc.unknowns):
+        what += (" (currents in a loop of inductors or voltage sources with no resistance "
+                 "have no DC solution; give a winding resistance=)")
+    raise_singular(exc, time=t, step=None, what=what)
 
 
 class LadderFailed(Exception):

@@ -63,6 +63,7 @@ DEFAULT_TOLERANCE = 1e-3  # relative local error per step
 DEFAULT_VOLTAGE_TOLERANCE = 1e-6  # V, absolute floor of the local error
 DEFAULT_CURRENT_TOLERANCE = 1e-9  # A
 RETRY_FACTOR = 0.25
+RESTART_FRACTION = 0.01  # first step after a corner or event, relative to the step before
 MAX_GROWTH = 2.0
 SAFETY = 0.85
 LADDER = 4  # step sizes are rounded down to 2**(k/LADDER) * until
@@ -283,6 +284,7 @@ class _Run:
         corners = corners[(corners > 0) & (corners < until)]
         fixed = cfg.step is not None
         grid = time_grid(until, cfg.step, corners) if fixed else None
+        grid_corner = _corner_flags(grid, corners) if fixed else None
         grid_k = 1
 
         x = self.initial_point()
@@ -317,6 +319,8 @@ class _Run:
         plain = not system.batches
         adaptive = not fixed
         landing = False
+        restart_steps = method.restart_steps
+        since_restart = 0
 
         while t < until:
             if progress is not None and _time.perf_counter() > next_report:
@@ -344,7 +348,7 @@ class _Run:
                     h_try = _ladder(h_try, until)
                     t_new, landing = t + h_try, False
             # -- solve
-            alpha, b0, b1, g0 = method.coefficients(h_try, h_prev)
+            alpha, b0, b1, g0 = method.coefficients(h_try, h_prev if since_restart >= restart_steps else None)
             history = b0 * q
             if b1:
                 history = history + b1 * q_prev
@@ -371,6 +375,7 @@ class _Run:
                     h = te - t
                     if fixed:
                         grid = np.insert(grid, grid_k, te)
+                        grid_corner = np.insert(grid_corner, grid_k, False)
                     else:
                         corners = np.insert(corners, corner_i, te)
                     continue
@@ -417,11 +422,12 @@ class _Run:
                 if self.q_rows.size:
                     np.maximum(self.q_scale, np.abs(hist_q[-1]), out=self.q_scale)
             h_prev = h_try
+            since_restart += 1
             h = h_next if not fixed else cfg.step
             if fixed and landing:
                 grid_k += 1
             # -- corners and events cut the history
-            restart = landing and (fixed and _is_corner(t, corners) or not fixed)
+            restart = landing and (not fixed or grid_corner[grid_k - 1])
             if self.event_batches and self.update_events(t, x):
                 x = self.jump(x, t, max(h_try, cfg.min_step) * JUMP_FRACTION, q)
                 q_jump = self.charges(x, t)
@@ -434,12 +440,15 @@ class _Run:
                 restart = True
             if restart:
                 h_prev = None
+                since_restart = 0
                 qdot = np.zeros(system.n)
                 if adaptive:
                     hist_t, hist_q = [t], [q[self.q_rows]]
                 if not fixed:
+                    # The time scale after a discontinuity is unknown: start
+                    # small and let the error control grow the step.
                     gap = (corners[corner_i + 1] if corner_i + 1 < corners.size else until) - t
-                    h = min(h, max(gap, cfg.min_step) * 0.05, cfg.max_step)
+                    h = max(RESTART_FRACTION * min(h_try, gap, cfg.max_step), cfg.min_step)
             if t >= until * (1 - 1e-14):
                 break
         self.smallest, self.largest = smallest, largest
@@ -488,14 +497,13 @@ def _ladder(h: float, until: float) -> float:
     return until * 2.0 ** (k / LADDER)
 
 
-def _is_corner(t: float, corners: np.ndarray) -> bool:
-    if not corners.size:
-        return False
-    i = np.searchsorted(corners, t)
-    for j in (i - 1, i):
-        if 0 <= j < corners.size and abs(corners[j] - t) <= 1e-12 * max(1.0, abs(t)):
-            return True
-    return False
+def _corner_flags(grid: np.ndarray, corners: np.ndarray) -> np.ndarray:
+    """For each grid point, whether it is a corner (where the history is cut)."""
+    flags = np.zeros(grid.size, dtype=bool)
+    if corners.size:
+        idx = np.clip(np.searchsorted(grid, corners), 0, grid.size - 1)
+        flags[idx[grid[idx] == corners]] = True
+    return flags
 
 
 def _finish(circuit, system: System, refs, run: _Run, started, cfg: _Settings, status, message) -> Waveforms:
