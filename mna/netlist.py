@@ -434,7 +434,10 @@ def make_number(text: str, span: Span) -> Number:
 _Q = (
     r"[-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?"
     r"(?:[ \t]*[A-Za-z\u00b5\u03bc\u03a9%]+(?:\^-?\d+)?"
-    r"(?:[*/][A-Za-z\u00b5\u03bc\u03a9%]+(?:\^-?\d+)?)*)?"
+    r"(?:[*/][A-Za-z\u00b5\u03bc\u03a9%]+(?:\^-?\d+)?)*"
+    # As in the grammar's QUANTITY: a unit is never followed by "=" (that
+    # word is the next argument's name, as in `ideality=1.8 resistance=...`).
+    r"(?![\w=(\u00b5\u03bc\u03a9%^*/]))?"
 )
 _FAST = re.compile(
     r"(?P<kind>[a-z][a-z0-9]*(?:-[a-z0-9]+)*)[ \t]+"
