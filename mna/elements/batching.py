@@ -19,6 +19,27 @@ def node_values(x: np.ndarray, index: np.ndarray) -> np.ndarray:
     return np.where(index >= 0, x[np.maximum(index, 0)], 0.0)
 
 
+class NodeSelector:
+    """``x[index]`` with 0 at reference nodes (-1), precomputed for speed.
+
+    Called several times per Newton iteration, so it avoids ``np.where``:
+    index -1 picks ``x[-1]``, which a 0/1 mask then zeroes.
+    """
+
+    def __init__(self, index: np.ndarray):
+        self.index = np.asarray(index, dtype=np.int64)
+        self.all_valid = bool(np.all(self.index >= 0))
+        self.none_valid = bool(np.all(self.index < 0))
+        self.mask = (self.index >= 0).astype(float)
+
+    def __call__(self, x: np.ndarray) -> np.ndarray:
+        if self.all_valid:
+            return x[self.index]
+        if self.none_valid:
+            return np.zeros(self.index.size)
+        return x[self.index] * self.mask
+
+
 class BranchPattern:
     """Residual rows and Jacobian pattern of branch currents ``i(v_a - v_b)``.
 
@@ -31,6 +52,7 @@ class BranchPattern:
     def __init__(self, a: np.ndarray, b: np.ndarray):
         self.a = np.asarray(a, dtype=np.int64)
         self.b = np.asarray(b, dtype=np.int64)
+        self._va, self._vb = NodeSelector(self.a), NodeSelector(self.b)
         rows = np.concatenate([self.a, self.b])
         self._f_keep = rows >= 0
         self.f_rows = rows[self._f_keep]
@@ -42,7 +64,7 @@ class BranchPattern:
 
     def across(self, x: np.ndarray) -> np.ndarray:
         """``v_a - v_b`` per instance."""
-        return node_values(x, self.a) - node_values(x, self.b)
+        return self._va(x) - self._vb(x)
 
     def f_values(self, current: np.ndarray) -> np.ndarray:
         """Residual values: ``+i`` at row a, ``-i`` at row b."""

@@ -44,7 +44,7 @@ from scipy.constants import Boltzmann, elementary_charge
 from ..errors import InputError
 from ..units import AMPERE, DIMENSIONLESS, FARAD, KELVIN, OHM, VOLT
 from .base import CONDUCTOR, Arg, Branch, NonlinearBatch, Unknown
-from .batching import BranchPattern, node_values
+from .batching import BranchPattern
 from .passive import TwoTerminal
 
 #: Conductance (S) across every junction: keeps a reverse-biased junction's
@@ -80,12 +80,26 @@ def junction_current(v: np.ndarray, isat: np.ndarray, nvt: np.ndarray, bv: np.nd
     0 means no breakdown), ``ibv`` the reverse current at ``v = -bv`` (A),
     ``nbvt`` the breakdown slope voltage ``nbv*Vt`` (V).
     """
-    ef, dfwd = safe_exp(v / nvt)
-    er, drev = safe_exp(-(v + bv) / nbvt)
-    er0 = np.exp(np.maximum(-bv / nbvt, -EXP_LIMIT * 10))
-    current = isat * (ef - 1.0) - ibv * (er - er0) + GMIN_JUNCTION * v
-    conductance = isat / nvt * dfwd + ibv / nbvt * drev + GMIN_JUNCTION
+    current, conductance = forward_current(v, isat, nvt)
+    if np.any(ibv > 0):
+        i_bd, g_bd = breakdown_current(v, bv, ibv, nbvt)
+        current = current + i_bd
+        conductance = conductance + g_bd
     return current, conductance
+
+
+def forward_current(v: np.ndarray, isat: np.ndarray, nvt: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Shockley current plus the GMIN_JUNCTION floor, and its conductance."""
+    ef, dfwd = safe_exp(v / nvt)
+    return isat * (ef - 1.0) + GMIN_JUNCTION * v, isat / nvt * dfwd + GMIN_JUNCTION
+
+
+def breakdown_current(v: np.ndarray, bv: np.ndarray, ibv: np.ndarray,
+                      nbvt: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Reverse-breakdown current (negative, A) and its conductance (S); 0 at v = 0."""
+    er, drev = safe_exp(-(v + bv) / nbvt)
+    er0 = np.exp(np.maximum(-bv / nbvt, -10 * EXP_LIMIT))
+    return -ibv * (er - er0), ibv / nbvt * drev
 
 
 def critical_voltage(isat: np.ndarray, nvt: np.ndarray) -> np.ndarray:
@@ -216,7 +230,10 @@ class DiodeBatch(NonlinearBatch):
 
     def evaluate(self, x, t):
         v = self.pattern.across(x)
-        i, g = junction_current(v, self.isat, self.nvt, self.bv, self.ibv, self.nbvt)
+        i, g = forward_current(v, self.isat, self.nvt)
+        if self.any_breakdown:
+            i_bd, g_bd = breakdown_current(v, self.bv, self.ibv, self.nbvt)
+            i, g = i + i_bd, g + g_bd
         return self.pattern.f_values(i), self.pattern.jf_values(g), self.empty, self.empty
 
     def junction_voltages(self, x: np.ndarray) -> np.ndarray:
@@ -257,4 +274,4 @@ def scale_step(x_new: np.ndarray, x_old: np.ndarray, v_new: np.ndarray, v_old: n
 
 Diode.Batch = DiodeBatch
 
-__all__ = ["Diode", "DiodeBatch", "junction_current", "limit_junction", "thermal_voltage", "node_values"]
+__all__ = ["Diode", "DiodeBatch", "junction_current", "limit_junction", "thermal_voltage"]

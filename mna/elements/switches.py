@@ -60,7 +60,7 @@ from ..errors import InputError, SimulationError, UnitsError, UnknownNameError
 from ..expressions import evaluate
 from ..units import AMPERE, DIMENSIONLESS, HERTZ, OHM, SECOND, VOLT, WATT, Dimension, describe
 from .base import CONDUCTOR, Arg, Branch, NonlinearBatch
-from .batching import BranchPattern, node_values
+from .batching import BranchPattern, NodeSelector
 from .passive import TwoTerminal
 
 STATE_WORDS = {"closed": True, "on": True, "open": False, "off": False}
@@ -430,8 +430,8 @@ class SwitchBatch(NonlinearBatch):
         # Comparison gates.
         cmp_ = [k for k, g in enumerate(gates) if isinstance(g, CompareGate)]
         self.cmp_idx = np.array(cmp_, dtype=np.int64)
-        self.cmp_pos = np.array([gates[k].pos for k in cmp_], dtype=np.int64)
-        self.cmp_neg = np.array([gates[k].neg for k in cmp_], dtype=np.int64)
+        self.cmp_pos = NodeSelector(np.array([gates[k].pos for k in cmp_], dtype=np.int64))
+        self.cmp_neg = NodeSelector(np.array([gates[k].neg for k in cmp_], dtype=np.int64))
         self.cmp_sign = np.array([gates[k].sign for k in cmp_])
         self.cmp_level = np.array([gates[k].level for k in cmp_])
         self.cmp_half = np.array([gates[k].hysteresis / 2.0 for k in cmp_])
@@ -471,7 +471,7 @@ class SwitchBatch(NonlinearBatch):
 
     def _signal(self, x: np.ndarray) -> np.ndarray:
         """``sign*(signal - level)`` of every comparison gate: > 0 means the comparison holds."""
-        s = node_values(x, self.cmp_pos) - node_values(x, self.cmp_neg)
+        s = self.cmp_pos(x) - self.cmp_neg(x)
         return self.cmp_sign * (s - self.cmp_level)
 
     # -- protocol -----------------------------------------------------------------------
