@@ -298,7 +298,7 @@ def test_choke_with_winding_resistance_against_quadrature():
     )
     res = c.transient(until=100e-6, step=0.05e-6, method="trapezoidal", start="rest")
     curve = choke_curve()
-    for i_level in (2.0, 5.0, 10.0, 15.0):  # 15 A is reached near 60 us
+    for i_level in (2.0, 5.0, 10.0, 15.0):  # 15 A is reached near 91 us
         t_level, _ = quad(lambda u: curve(u)[1] / (v - r * u), 0, i_level, epsabs=1e-15, epsrel=1e-12)
         k = np.searchsorted(res["i(L1)"], i_level)
         t_sim = np.interp(i_level, res["i(L1)"][k - 1:k + 1], res.time[k - 1:k + 1])
