@@ -111,6 +111,22 @@ class NewtonResult:
 
 #: Largest number of step halvings per iteration when ``damping`` is on.
 MAX_HALVINGS = 8
+#: After this many iterations an iterate also counts as converged when every
+#: equation balances to RESIDUAL_RELTOL of the magnitudes of its terms (for
+#: steps so short, such as the instant after an event, that round-off in the
+#: solve exceeds the step tolerance).
+STALL_AFTER = 3
+RESIDUAL_RELTOL = 1e-12
+RESIDUAL_FLOOR = 1e-30
+
+
+def _abs_matrices(system: System):
+    """|G| and |C| of a system (cached on it): the scales of each equation's terms."""
+    cached = system.__dict__.get("_abs_matrices")
+    if cached is None:
+        cached = (abs(system.G).tocsr(), abs(system.C).tocsr())
+        system.__dict__["_abs_matrices"] = cached
+    return cached
 
 
 def newton(
@@ -143,7 +159,12 @@ def newton(
        never counts as converged. The trial point's evaluation is reused
        for the next iteration, so an accepted full step costs nothing extra.
     3. Convergence: every unknown moved less than ``reltol*|x| + abstol``
-       (abstol per dimension: 1 uV, 1 pA, see :data:`mna.system.ABSTOL`).
+       (abstol per dimension: 1 uV, 1 pA, see :data:`mna.system.ABSTOL`);
+       or, after :data:`STALL_AFTER` iterations, every equation balances to
+       :data:`RESIDUAL_RELTOL` of the magnitudes of its terms. The second
+       test matters only when round-off in the solve is larger than the
+       step tolerance: very short steps (the instant after an event), where
+       ``alpha*L`` reaches 1e12 and more.
 
     The matrix is refactored only when its values changed: a batch whose
     Jacobian is constant between events (a switch) reuses one LU.
@@ -161,8 +182,8 @@ def newton(
         factorizer.solves += 1
         return NewtonResult(lu.solve(rhs), 1, True)
 
-    def linearise(x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        """Residual and CSC matrix data at ``x``."""
+    def linearise(x: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+        """Residual, CSC matrix data, and the nonlinear f and q at ``x``."""
         f_nl, q_nl, jf, jq = system.evaluate_batches(x, t)
         residual = system.G @ x + f_nl - s
         if alpha:
@@ -171,12 +192,30 @@ def newton(
             residual += history
         if extra_diag is not None:
             residual += extra_diag * x
-        return residual, system.matrix_data(alpha, jf, jq, extra_diag)
+        return residual, system.matrix_data(alpha, jf, jq, extra_diag), f_nl, q_nl
+
+    def balanced(x: np.ndarray, residual: np.ndarray, f_nl: np.ndarray, q_nl: np.ndarray) -> bool:
+        """Every equation holds to RESIDUAL_RELTOL of the terms that make it up."""
+        abs_g, abs_c = _abs_matrices(system)
+        ax = np.abs(x)
+        terms = abs_g @ ax + np.abs(f_nl) + np.abs(s)
+        if alpha:
+            terms += alpha * (abs_c @ ax + np.abs(q_nl))
+        if history is not None:
+            terms += np.abs(history)
+        if extra_diag is not None:
+            terms += np.abs(extra_diag * x)
+        return bool(np.all(np.abs(residual) <= RESIDUAL_RELTOL * terms + RESIDUAL_FLOOR))
 
     x = np.array(x0, dtype=float)
-    residual, data = linearise(x)
+    residual, data, f_nl, q_nl = linearise(x)
     step = scale = np.ones(system.n)
+    limited = damped = False
     for iteration in range(1, max_iterations + 1):
+        if iteration > STALL_AFTER and not limited and not damped and balanced(x, residual, f_nl, q_nl):
+            # The update is stuck at round-off while every equation holds to
+            # 1e-12 of its terms: nothing more can be gained in floating point.
+            return NewtonResult(x, iteration - 1, True)
         lu = factorizer.factor(data)
         dx = lu.solve(-residual)
         factorizer.solves += 1
@@ -202,7 +241,7 @@ def newton(
         x = x_new
         if not limited and not damped and np.all(step <= scale):
             return NewtonResult(x, iteration, True)
-        residual, data = trial if damping else linearise(x)
+        residual, data, f_nl, q_nl = trial if damping else linearise(x)
     worst = np.argsort(-(step / scale))[:4]
     return NewtonResult(x, max_iterations, False, system.describe_unknowns(worst))
 

@@ -247,7 +247,8 @@ class DiodeBatch(NonlinearBatch):
             # The same rule on the reverse voltage beyond the knee, u = -(v + BV).
             u_new, u_old = -(v_lim + self.bv), -(v_old + self.bv)
             u_lim = limit_junction(u_new, u_old, self.nbvt, self.vcrit_bv)
-            v_lim = np.where(self.breakdown, -u_lim - self.bv, v_lim)
+            # (only where the limit acted: the round trip v -> u -> v is not exact)
+            v_lim = np.where(self.breakdown & (u_lim != u_new), -u_lim - self.bv, v_lim)
         return scale_step(x_new, x_old, v_new, v_old, v_lim)
 
 
