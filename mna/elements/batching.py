@@ -53,14 +53,22 @@ class BranchPattern:
         self.a = np.asarray(a, dtype=np.int64)
         self.b = np.asarray(b, dtype=np.int64)
         self._va, self._vb = NodeSelector(self.a), NodeSelector(self.b)
+        m = self.a.size
+        inst = np.arange(m)
+        # Residual: +i at row a, -i at row b, reference rows dropped.
         rows = np.concatenate([self.a, self.b])
-        self._f_keep = rows >= 0
-        self.f_rows = rows[self._f_keep]
+        keep = rows >= 0
+        self.f_rows = rows[keep]
+        self._f_pick = np.concatenate([inst, inst])[keep]
+        self._f_sign = np.concatenate([np.ones(m), -np.ones(m)])[keep]
+        # Jacobian: the block [[g, -g], [-g, g]] on (a, b) x (a, b).
         jr = np.concatenate([self.a, self.a, self.b, self.b])
         jc = np.concatenate([self.a, self.b, self.a, self.b])
-        self._j_keep = (jr >= 0) & (jc >= 0)
-        self.jf_rows = jr[self._j_keep]
-        self.jf_cols = jc[self._j_keep]
+        keep = (jr >= 0) & (jc >= 0)
+        self.jf_rows = jr[keep]
+        self.jf_cols = jc[keep]
+        self._j_pick = np.concatenate([inst, inst, inst, inst])[keep]
+        self._j_sign = np.concatenate([np.ones(m), -np.ones(m), -np.ones(m), np.ones(m)])[keep]
 
     def across(self, x: np.ndarray) -> np.ndarray:
         """``v_a - v_b`` per instance."""
@@ -68,9 +76,8 @@ class BranchPattern:
 
     def f_values(self, current: np.ndarray) -> np.ndarray:
         """Residual values: ``+i`` at row a, ``-i`` at row b."""
-        return np.concatenate([current, -current])[self._f_keep]
+        return current[self._f_pick] * self._f_sign
 
     def jf_values(self, conductance: np.ndarray) -> np.ndarray:
         """Jacobian values of the 2x2 block ``[[g, -g], [-g, g]]``."""
-        g = conductance
-        return np.concatenate([g, -g, -g, g])[self._j_keep]
+        return conductance[self._j_pick] * self._j_sign

@@ -241,6 +241,8 @@ class DiodeBatch(NonlinearBatch):
 
     def limit(self, x_new, x_old):
         v_new = self.pattern.across(x_new)
+        if not self.any_breakdown and not np.any(v_new > self.vcrit):
+            return x_new  # the usual case near convergence: nothing to limit
         v_old = self.pattern.across(x_old)
         v_lim = limit_junction(v_new, v_old, self.nvt, self.vcrit)
         if self.any_breakdown:

@@ -446,6 +446,7 @@ class SwitchBatch(NonlinearBatch):
         self._pending: tuple[float, float, np.ndarray] | None = None
         self._log_t: list[float] = []
         self._log_s: list[np.ndarray] = []
+        self._g_cache: tuple | None = None
         self._rewind(0.0)
 
     # -- time gates -----------------------------------------------------------------
@@ -478,9 +479,17 @@ class SwitchBatch(NonlinearBatch):
     def evaluate(self, x, t):
         if t < self._t_seen:
             self._rewind(t)
-        g = np.where(self.state, self.g_on, self.g_off)
+        g, jf = self._conductances()
         v = self.pattern.across(x)
-        return self.pattern.f_values(g * v), self.pattern.jf_values(g), self.empty, self.empty
+        return self.pattern.f_values(g * v), jf, self.empty, self.empty
+
+    def _conductances(self) -> tuple[np.ndarray, np.ndarray]:
+        """Per-switch conductance and the Jacobian values, cached until a state changes."""
+        key = self.state.tobytes()
+        if self._g_cache is None or self._g_cache[0] != key:
+            g = np.where(self.state, self.g_on, self.g_off)
+            self._g_cache = (key, g, self.pattern.jf_values(g))
+        return self._g_cache[1], self._g_cache[2]
 
     def update_events(self, t, x):
         if t < self._t_seen:
