@@ -12,9 +12,10 @@ against ``tolerance`` relative to the largest magnitude each charge or flux
 has reached so far, plus an absolute floor from ``voltage-tolerance`` and
 ``current-tolerance``. A step whose error is too large is rejected and
 retried smaller; the next step grows by at most a factor of 2 and never
-beyond ``max-step``. Step sizes are rounded down to a ladder of quarter
-powers of two, so the few distinct matrices that result are factored once
-each and reused from a cache.
+beyond ``max-step``; it grows only when the error allows at least 1.5x.
+Step sizes are rounded down to a ladder of half powers of two, so the few
+distinct matrices that result are factored once each and reused from a
+cache.
 
 **Corners and events**: every corner (waveform kink, PWM edge, schedule
 time) is landed on exactly. At a corner, and whenever a switched element
@@ -66,7 +67,8 @@ RETRY_FACTOR = 0.25
 RESTART_FRACTION = 0.01  # first step after a corner or event, relative to the step before
 MAX_GROWTH = 2.0
 SAFETY = 0.85
-LADDER = 4  # step sizes are rounded down to 2**(k/LADDER) * until
+LADDER = 2  # step sizes are rounded down to 2**(k/LADDER) * until
+GROWTH_THRESHOLD = 1.5  # a step grows only if the error allows at least this factor
 
 
 def time_grid(until: float, step: float, corners: np.ndarray) -> np.ndarray:
@@ -397,7 +399,14 @@ class _Run:
                                 time=t, step=h,
                             )
                         continue
-                    h_next = h_try * min(MAX_GROWTH, factor)
+                    # Grow only when it pays (each new step length costs a
+                    # factorisation); shrink as soon as the error asks for it.
+                    if factor >= GROWTH_THRESHOLD:
+                        h_next = h_try * min(MAX_GROWTH, factor)
+                    elif factor >= 1.0:
+                        h_next = h_try
+                    else:
+                        h_next = h_try * factor
                 else:
                     h_next = h_try * MAX_GROWTH if len(hist_t) > 1 else h_try * 1.5
             # -- accept
