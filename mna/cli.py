@@ -72,80 +72,93 @@ def _error_exit(exc: BaseException) -> int:
 
 def cmd_run(args) -> int:
     from . import load
-    from .errors import MnaError, SimulationError
-    from .report import plot_waveforms, summary, write_json
-    from .results import OperatingPoint, Waveforms
+    from .console import RunProgress, check_lines, is_terminal, measurement_lines, wants_colour
+    from .errors import InputError, MnaError
+    from .measure import run_and_check
+    from .report import summary, write_json
 
     path = Path(args.file)
     out_dir = Path(args.out) if args.out else Path("results") / path.stem
     say = (lambda *a: None) if args.quiet else print
+    progress = RunProgress(sys.stdout) if is_terminal(sys.stdout) and not args.quiet else None
     try:
         circuit = load(path)
         if not circuit.analyses:
-            from .errors import InputError
-
             raise InputError(f"{path}: no 'simulate' line: nothing to run",
                              hint="add 'simulate dc' or 'simulate transient until=10 ms'")
-        results = []
-        failure: SimulationError | None = None
-        for request in circuit.analyses:
-            try:
-                results.extend(_run_one(circuit, request))
-            except SimulationError as exc:
-                failure = exc
-                if isinstance(exc.partial, Waveforms):
-                    results.append(exc.partial)
-                break
+        try:
+            outcome = run_and_check(circuit, progress)
+        finally:
+            if progress is not None:
+                progress.clear()
     except MnaError as exc:
         return _error_exit(exc)
     except Exception as exc:  # noqa: BLE001 - last line of defence: no traceback for users
         return _error_exit(exc)
 
-    title = circuit.title or circuit.name
     say(f"circuit {circuit.name}" + (f": {circuit.title}" if circuit.title else ""))
     for w in circuit.warnings:
         print(f"warning: {w}", file=sys.stderr)
-    outputs: dict[str, str] = {}
-    transient_count = sum(isinstance(r, Waveforms) for r in results)
-    k = 0
     try:
-        for request, result in zip(circuit.analyses, results):
-            if isinstance(result, OperatingPoint):
-                say("  dc operating point:")
-                for label, value in list(result.values.items())[:12]:
-                    say(f"    {label:<16} {_fmt(value, result.units.get(label, ''))}")
-                if len(result.values) > 12:
-                    say(f"    ... {len(result.values) - 12} more in summary.json")
-            elif isinstance(result, Waveforms):
-                k += 1
-                suffix = "" if transient_count == 1 else f"-{k}"
-                csv_path = result.to_csv(out_dir / f"waveforms{suffix}.csv")
-                outputs[f"csv{suffix}"] = str(csv_path)
-                if not args.no_plot and result.time.size > 1:
-                    png = plot_waveforms(out_dir / f"waveforms{suffix}.png", result, title)
-                    outputs[f"png{suffix}"] = str(png)
-                st = result.statistics
-                say(f"  transient to {_fmt(float(result.time[-1]), 's')}: {st['steps']} steps, "
-                    f"{st['factorizations']} factorisation{'s' if st['factorizations'] != 1 else ''}, "
-                    f"{st['wall_time_s']:.3g} s")
-        data = summary(circuit, results, outputs)
+        outputs = _write_results(circuit, outcome.results, out_dir, args, say)
+        data = summary(circuit, outcome.results, outputs, extra=outcome.report.to_json())
         write_json(out_dir / "summary.json", data)
         outputs["json"] = str(out_dir / "summary.json")
     except OSError as exc:
         print(f"error: cannot write results to {out_dir}: {exc}", file=sys.stderr)
         return EXIT_INPUT
+    if outcome.failure is None:
+        for line in measurement_lines(outcome.report):
+            say(line)
+        for line in check_lines(outcome.report, colour=wants_colour(sys.stdout), failures_only=args.quiet):
+            print(line)
     say(f"  results in {out_dir}/: " + ", ".join(Path(p).name for p in outputs.values()))
-    if failure is not None:
-        return _error_exit(failure)
-    return EXIT_OK
+    if outcome.failure is not None:
+        return _error_exit(outcome.failure)
+    return outcome.exit_code
 
 
-def _run_one(circuit, request):
-    from .analyses.transient import transient
+def _write_results(circuit, results: list, out_dir: Path, args, say) -> dict[str, str]:
+    """CSV and PNG of each transient run (the record list only), and the console lines."""
+    from .report import plot_waveforms
+    from .results import OperatingPoint, Waveforms
 
-    if request.analysis == "dc":
-        return [circuit.dc()]
-    return [transient(circuit, dict(request.settings), None)]
+    outputs: dict[str, str] = {}
+    transient_count = sum(isinstance(r, Waveforms) for r in results)
+    k = 0
+    for result in results:
+        if isinstance(result, OperatingPoint):
+            say("  dc operating point:")
+            for label, value in list(result.values.items())[:12]:
+                say(f"    {label:<16} {_fmt(value, result.units.get(label, ''))}")
+            if len(result.values) > 12:
+                say(f"    ... {len(result.values) - 12} more in summary.json")
+        elif isinstance(result, Waveforms):
+            k += 1
+            suffix = "" if transient_count == 1 else f"-{k}"
+            recorded = _recorded(circuit, result)
+            csv_path = recorded.to_csv(out_dir / f"waveforms{suffix}.csv")
+            outputs[f"csv{suffix}"] = str(csv_path)
+            if not args.no_plot and result.time.size > 1:
+                png = plot_waveforms(out_dir / f"waveforms{suffix}.png", recorded, circuit.title or circuit.name)
+                outputs[f"png{suffix}"] = str(png)
+            st = result.statistics
+            say(f"  transient to {_fmt(float(result.time[-1]), 's')}: {st['steps']} steps, "
+                f"{st['factorizations']} factorisation{'s' if st['factorizations'] != 1 else ''}, "
+                f"{st['wall_time_s']:.3g} s")
+    return outputs
+
+
+def _recorded(circuit, waves):
+    """The waveforms the CSV and plot show: what ``record`` names (or the default set),
+    without the extra signals kept only for measurements."""
+    from dataclasses import replace
+
+    from .analyses.common import default_signals
+
+    keep = [r.label for r in (circuit.records or default_signals(circuit)) if r.label in waves]
+    return replace(waves, signals={k: waves.signals[k] for k in keep},
+                   units={k: waves.units[k] for k in keep})
 
 
 def _fmt(value: float, unit: str) -> str:

@@ -284,7 +284,26 @@ class _Calls:
             value = _compute(call.func, time, values, extras, start, stop, direction)
         except MeasurementError as exc:
             raise MeasurementError(f"{call.func}(): {exc.message}", call.span) from None
+        except _NoValue:
+            raise _NoValue(self._why_no_value(call, ref, time, values, extras, start, stop, direction)) from None
         return Quantity(value, result_dim)
+
+    def _why_no_value(self, call: nl.Call, ref: "SignalRef", time: np.ndarray, values: np.ndarray,
+                      extras: dict[str, float], start: float | None, stop: float | None, direction: str) -> str:
+        """The reason, in the signal's unit, that a measurement has no value."""
+        t, v = wm.window(time, values, start=start, stop=stop)
+        hint = _hint(ref)
+
+        def show(x: float) -> str:
+            return _show(x, ref.dimension, hint)
+
+        where = f"between {_seconds(t[0])} and {_seconds(t[-1])}"
+        if call.func == "crossing":
+            how = "" if direction == "either" else f" ({direction})"
+            return (f"{ref.label} never reaches {show(extras['level'])}{how} {where}; "
+                    f"it stays between {show(float(v.min()))} and {show(float(v.max()))}")
+        return (f"{ref.label} ends where it starts ({show(float(v[0]))}) {where}, so it has no step "
+                f"for {call.func}() to measure; put from= before the step and to= after it settles")
 
     def _waveform_ref(self, call: nl.Call, spec: _Spec) -> "SignalRef":
         first = call.args[0] if call.args else None
@@ -676,7 +695,7 @@ def _measure_one(st: nl.MeasureStatement, scope: Mapping[str, Quantity], calls: 
     hints[st.name] = _expr_hint(st.value, calls, hints)
     result.status, result.value = "ok", q.value
     result.unit = _si_symbol(q.dim, hints[st.name])
-    result.shown = _show(q.value, q.dim, hints[st.name])
+    result.shown = _show(q.value, q.dim, hints[st.name], digits=5)
     return result, q
 
 
@@ -707,7 +726,7 @@ def _check_one(st: nl.CheckStatement, scope: Mapping[str, Quantity], calls: _Cal
         return result
     result.status = "pass" if passed else "fail"
     result.value, result.margin, result.band = left.value, margin, band
-    result.shown_value = _show(left.value, left.dim, hint)
+    result.shown_value = _show(left.value, left.dim, hint, digits=5)
     result.shown_margin = _show(margin, left.dim, hint, signed=True)
     return result
 
@@ -756,19 +775,19 @@ def _si_symbol(dim: Dimension, hint: str) -> str:
     return unit_symbol(dim)
 
 
-def _show(value: float, dim: Dimension, hint: str = "", *, signed: bool = False) -> str:
+def _show(value: float, dim: Dimension, hint: str = "", *, signed: bool = False, digits: int = 4) -> str:
     """A value (SI) as printed: ``2.303 ms``, ``2865 rpm``, ``4.32 %``."""
     sign = "+" if signed and value > 0 else ""
     if hint == "rpm":
-        return f"{sign}{value / _RPM:.4g} rpm"
+        return f"{sign}{value / _RPM:.{digits}g} rpm"
     if hint == "%" and dim == DIMENSIONLESS:
-        return f"{sign}{value * 100:.4g} %"
+        return f"{sign}{value * 100:.{digits}g} %"
     if hint == "rad/s":
-        return f"{sign}{value:.4g} rad/s"
+        return f"{sign}{value:.{digits}g} rad/s"
     symbol = hint or unit_symbol(dim)
     if symbol in ("", "1/s"):
-        return f"{sign}{value:.4g}" + (f" {symbol}" if symbol else "")
-    return sign + format_si(value, symbol)
+        return f"{sign}{value:.{digits}g}" + (f" {symbol}" if symbol else "")
+    return sign + format_si(value, symbol, digits)
 
 
 def _shown_limit(st: nl.CheckStatement, right: Quantity, tolerance: Quantity | None, hint: str) -> str:
@@ -827,5 +846,16 @@ def run_and_check(circuit: "Circuit", progress: Callable[[float, float], None] |
         except SimulationError as exc:
             if isinstance(exc.partial, Waveforms):
                 results.append(exc.partial)
-            return RunOutcome(results, exc, CheckReport())
+            return RunOutcome(results, exc, _not_run(circuit, f"not evaluated: the simulation failed: {exc}"))
     return RunOutcome(results, None, evaluate_checks(circuit, results))
+
+
+def _not_run(circuit: "Circuit", reason: str) -> CheckReport:
+    """Every measurement and check as an error with ``reason``."""
+    report = CheckReport()
+    for st in _statements(circuit):
+        if isinstance(st, nl.MeasureStatement):
+            report.measurements.append(MeasureResult(st.name, st.text, st.span.line, "error", message=reason))
+        else:
+            report.checks.append(CheckResult(st.text, st.span.line, st.op, "error", message=reason))
+    return report
