@@ -1,11 +1,14 @@
 """The ``mna`` command.
 
-    mna run FILE [--out DIR] [--no-plot]   run the file's analyses, write CSV, PNG, JSON
+    mna run FILE [--out DIR] [--no-plot] [--quiet]   run the file's analyses, write CSV, PNG, JSON
+    mna check FILE|DIR ... [--junit REPORT.xml] [--jobs N] [--quiet]
+                                           CI mode: run every circuit file, summarise its checks
     mna kinds                              list the element kinds and their arguments
 
 Exit status: 0 all went well (every check passed), 1 a check failed,
 2 the input is wrong (syntax, units, names, topology), 3 the simulation
 failed (singular matrix, no convergence), 4 an internal error of mna.
+``mna check`` exits with the highest status over its files.
 """
 
 from __future__ import annotations
@@ -34,7 +37,18 @@ def _parser() -> argparse.ArgumentParser:
     run.add_argument("file", help="netlist file (.mna)")
     run.add_argument("--out", metavar="DIR", help="output folder (default: results/<file name>)")
     run.add_argument("--no-plot", action="store_true", help="skip the PNG plot")
-    run.add_argument("--quiet", "-q", action="store_true", help="print only errors and failed checks")
+    run.add_argument("--quiet", "-q", action="store_true",
+                     help="no progress, no tables: print only errors and failed checks")
+    check = sub.add_parser(
+        "check", help="run every circuit file given (folders: every *.mna inside) and summarise the checks",
+        description="Run circuit files in parallel and report their checks. Exit status: 0 every check "
+        "passed, 1 a check failed, 2 an input error, 3 a simulation failed (the highest over all files).")
+    check.add_argument("paths", nargs="+", metavar="FILE|DIR", help="circuit files or folders")
+    check.add_argument("--junit", metavar="REPORT.xml", help="also write a JUnit XML report")
+    check.add_argument("--jobs", "-j", type=int, metavar="N",
+                       help="worker processes (default: one per CPU core; 1 runs in this process)")
+    check.add_argument("--quiet", "-q", action="store_true",
+                       help="no progress and no line per passing file")
     sub.add_parser("kinds", help="list element kinds and their arguments")
     return p
 
@@ -47,6 +61,8 @@ def main(argv: Sequence[str] | None = None) -> int:
     try:
         if args.command == "run":
             return cmd_run(args)
+        if args.command == "check":
+            return cmd_check(args)
         if args.command == "kinds":
             return cmd_kinds()
     except KeyboardInterrupt:
@@ -159,6 +175,48 @@ def _recorded(circuit, waves):
     keep = [r.label for r in (circuit.records or default_signals(circuit)) if r.label in waves]
     return replace(waves, signals={k: waves.signals[k] for k in keep},
                    units={k: waves.units[k] for k in keep})
+
+
+def cmd_check(args) -> int:
+    import time
+
+    from .batch import check_files, default_jobs, exit_code, find_circuits, junit_xml
+    from .console import BatchProgress, batch_summary, file_details, is_terminal, wants_colour
+    from .errors import InputError
+    from .results import write_atomic
+
+    started = time.perf_counter()
+    try:
+        paths = find_circuits(args.paths)
+        jobs = min(args.jobs if args.jobs is not None else default_jobs(), len(paths))
+        if jobs < 1:
+            raise InputError(f"--jobs needs at least 1 worker process, got {args.jobs}")
+    except InputError as exc:
+        return _error_exit(exc)
+    colour = wants_colour(sys.stdout)
+    display = BatchProgress(sys.stdout, len(paths), max(len(str(p)) for p in paths),
+                            live=is_terminal(sys.stdout) and not args.quiet, colour=colour, quiet=args.quiet)
+    try:
+        results = check_files(paths, jobs, on_result=display.file_done, on_wait=display.tick)
+    finally:
+        display.finish()
+    seconds = time.perf_counter() - started
+    troubled = [r for r in results if r.status != "ok"]
+    if troubled:
+        print()
+    for result in troubled:
+        for line in file_details(result, colour=colour):
+            print(line)
+    for line in batch_summary(results, seconds, jobs):
+        print(line)
+    code = exit_code(results)
+    if args.junit:
+        try:
+            write_atomic(args.junit, junit_xml(results, seconds))
+        except OSError as exc:
+            print(f"error: cannot write the JUnit report {args.junit}: {exc}", file=sys.stderr)
+            code = max(code, EXIT_INPUT)
+    return code
 
 
 def _fmt(value: float, unit: str) -> str:

@@ -142,3 +142,97 @@ def progress_text(t: float, until: float, elapsed: float) -> str:
     if fraction > 0 and elapsed > 0:
         text += f", about {duration(elapsed * (1 - fraction) / fraction)} left"
     return text
+
+
+# --------------------------------------------------------------------------
+# mna check: one line per file, a progress line, the closing summary.
+
+_FILE_WORDS = {"ok": "pass", "failed": "fail", "input": "error", "simulation": "error", "internal": "error"}
+
+
+def file_line(result, path_width: int, *, colour: bool = False) -> str:
+    """``pass   circuits/rc.mna   4 checks passed   0.3 s`` for one checked file."""
+    from .batch import STATUS_TEXT
+
+    n = len(result.checks)
+    if result.status == "ok":
+        what = f"{n} check{'s' if n != 1 else ''} passed" if n else "ran, no checks"
+    elif result.status == "failed":
+        what = f"{result.count('fail')} of {n} check{'s' if n != 1 else ''} failed"
+    else:
+        what = STATUS_TEXT[result.status]
+    word = status_word(_FILE_WORDS[result.status], colour)
+    return f"  {word}  {result.path:<{path_width}}  {what:<24}  {duration(result.seconds)}"
+
+
+def file_details(result, *, colour: bool = False) -> list[str]:
+    """What went wrong in one file: its failed or broken checks, or the file's error."""
+    from .batch import STATUS_TEXT
+    from .measure import CheckReport
+
+    lines = [f"{result.path}: {STATUS_TEXT[result.status]}"]
+    if result.message:
+        lines.extend("    " + line for line in result.message.splitlines())
+    if result.status != "simulation":  # there every check says the same as the message
+        report = CheckReport(result.measurements, result.checks)
+        lines.extend(check_lines(report, colour=colour, failures_only=True)[1:])
+    return lines
+
+
+def batch_summary(results, seconds: float, jobs: int) -> list[str]:
+    """The closing lines: counts of checks and files, then ``N passed, N failed`` alone."""
+    passed = sum(r.count("pass") for r in results)
+    failed = sum(r.count("fail") for r in results)
+    broken = sum(r.count("error") for r in results)
+    files = {status: sum(r.status == status for r in results) for status in _FILE_WORDS}
+    checks = f"checks: {passed} passed, {failed} failed" + (f", {broken} not evaluated" if broken else "")
+    parts = [f"{files['ok']} ok"]
+    for status, words in (("failed", "with a failed check"), ("input", "with an input error"),
+                          ("simulation", "with a failed simulation"), ("internal", "with an internal error")):
+        if files[status]:
+            parts.append(f"{files[status]} {words}")
+    workers = f"{jobs} worker{'s' if jobs != 1 else ''}"
+    return [f"{checks}; files: {', '.join(parts)} ({len(results)} in {duration(seconds)}, {workers})",
+            f"{passed} passed, {failed} failed"]
+
+
+class BatchProgress:
+    """Reports files as they finish: a line each, and on a terminal a live status line.
+
+    ``quiet`` leaves out the lines of files whose checks all passed.
+    """
+
+    def __init__(self, stream: IO[str], total: int, path_width: int, *, live: bool, colour: bool,
+                 quiet: bool = False, clock: Callable[[], float] = time.perf_counter):
+        self.stream = stream
+        self.total = total
+        self.path_width = path_width
+        self.live = live
+        self.colour = colour
+        self.quiet = quiet
+        self.clock = clock
+        self.started = clock()
+        self.done = 0
+        self.bad = 0
+
+    def file_done(self, result) -> None:
+        self.done += 1
+        self.bad += result.status != "ok"
+        if self.live:
+            self.stream.write(CLEAR_LINE)
+        if not (self.quiet and result.status == "ok"):
+            self.stream.write(file_line(result, self.path_width, colour=self.colour) + "\n")
+        self.tick()
+
+    def tick(self) -> None:
+        if self.live and self.done < self.total:
+            text = (f"  checking: {self.done} of {self.total} files done"
+                    + (f", {self.bad} not ok" if self.bad else "")
+                    + f", {duration(self.clock() - self.started)}")
+            self.stream.write(CLEAR_LINE + text)
+        self.stream.flush()
+
+    def finish(self) -> None:
+        if self.live:
+            self.stream.write(CLEAR_LINE)
+            self.stream.flush()
