@@ -82,7 +82,7 @@ def check_lines(report: CheckReport, *, colour: bool = False, failures_only: boo
     if report.count("error"):
         head += f", {report.count('error')} could not be evaluated"
     if not shown:
-        return [head]
+        return [] if failures_only else [head]
     rows = [["", "check", "measured", "limit", "margin"]]
     rows += [[status_word(c.status, False), c.text, c.shown_value, c.shown_limit, c.shown_margin]
              for c in shown]

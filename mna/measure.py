@@ -46,7 +46,7 @@ import numpy as np
 
 from . import netlist as nl
 from . import waveform_math as wm
-from .errors import InputError, MeasurementError, SimulationError, Span, UnitsError, UnknownNameError
+from .errors import InputError, MeasurementError, SimulationError, UnitsError, UnknownNameError
 from .expressions import CONSTANTS, FUNCTIONS, evaluate
 from .units import DIMENSIONLESS, JOULE, SECOND, Dimension, Quantity, describe, format_si, unit_symbol
 
@@ -208,11 +208,12 @@ def recording(circuit: "Circuit") -> list["SignalRef"]:
 
 
 class _Calls:
-    """Evaluates measurement calls and plain circuit quantities.
+    """Evaluates measurement calls and plain circuit quantities on results.
 
-    With ``waves`` and ``op`` both None it validates instead: every
-    measurement is NaN of the right dimension, and window ends given as
-    constants are checked against ``until`` (the run's end, s).
+    With ``dry=True`` it validates instead (no results needed): every
+    measurement is NaN of the right dimension, so units and names are
+    checked, and window ends known before the run are checked against
+    ``until``, the end of the last transient run (s).
     """
 
     def __init__(self, circuit: "Circuit", waves: "Waveforms | None" = None,
@@ -269,7 +270,7 @@ class _Calls:
                 hint="add one, e.g. 'simulate transient until=20 ms'; with 'simulate dc' alone, "
                 "check plain quantities such as v(out) > 4.5 V",
             )
-        ref = self._waveform_ref(call, spec)
+        ref = self._waveform_ref(call)
         extras = self._extras(call, spec, ref, sub)
         start, stop, direction = self._options(call, spec, sub)
         result_dim = _result_dimension(spec, ref)
@@ -305,7 +306,7 @@ class _Calls:
         return (f"{ref.label} ends where it starts ({show(float(v[0]))}) {where}, so it has no step "
                 f"for {call.func}() to measure; put from= before the step and to= after it settles")
 
-    def _waveform_ref(self, call: nl.Call, spec: _Spec) -> "SignalRef":
+    def _waveform_ref(self, call: nl.Call) -> "SignalRef":
         first = call.args[0] if call.args else None
         if call.func == "energy":
             if not isinstance(first, nl.Name):
@@ -350,7 +351,8 @@ class _Calls:
                         f"{describe(ref.dimension)}; got {describe(q.dim)}", expr.span)
                 width = out.get("fraction", out.get("band"))
                 if not math.isnan(width) and not width > 0:
-                    raise InputError(f"settling() band must be positive, got {_literal_text(expr) or q.value}", expr.span)
+                    raise InputError(f"settling() band must be positive, got {_literal_text(expr) or q.value}",
+                                     expr.span)
         return out
 
     def _options(self, call: nl.Call, spec: _Spec,
@@ -358,12 +360,14 @@ class _Calls:
         allowed = (("from", "to") if spec.windowed else ()) + (("direction",) if call.func == "crossing" else ())
         window: dict[str, float] = {}
         direction = "either"
+        seen: set[str] = set()
         for key, expr, key_span in call.named:
             if key not in allowed:
                 raise UnknownNameError(f"{call.func}() has no argument {key}=", key_span,
                                        hint=_usage(call.func, spec))
-            if key in window or (key == "direction" and direction != "either"):
+            if key in seen:
                 raise InputError(f"{key}= is given twice", key_span)
+            seen.add(key)
             if key == "direction":
                 word = expr.name if isinstance(expr, nl.Name) else getattr(expr, "word", None)
                 if word not in _DIRECTIONS:
@@ -548,11 +552,8 @@ def _judge(st: nl.CheckStatement, left: Quantity, right: Quantity,
         raise UnitsError(f"check compares {describe(left.dim)} with {describe(right.dim)}", st.span,
                          hint="both sides of a check need the same unit")
     if st.op != "within":
-        margin = {"<": right.value - left.value, "<=": right.value - left.value,
-                  ">": left.value - right.value, ">=": left.value - right.value}[st.op]
-        passed = {"<": left.value < right.value, "<=": left.value <= right.value,
-                  ">": left.value > right.value, ">=": left.value >= right.value}[st.op]
-        return passed, margin, None
+        margin = right.value - left.value if st.op in ("<", "<=") else left.value - right.value
+        return margin > 0 or (margin == 0 and st.op.endswith("=")), margin, None
     assert tolerance is not None
     if tolerance.dim == DIMENSIONLESS:
         band = abs(tolerance.value * right.value)
