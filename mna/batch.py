@@ -177,6 +177,10 @@ def check_files(paths: Sequence[Path], jobs: int | None = None,
 
 def _in_workers(paths: Sequence[Path], workers: int, finished: Callable[[Path, FileResult], None],
                 on_wait: Callable[[], None] | None, wait_seconds: float) -> None:
+    # Workers started by fork inherit what is imported here: import the
+    # solver (scipy) once rather than once in every worker.
+    from .analyses import transient  # noqa: F401
+
     with ProcessPoolExecutor(max_workers=workers) as pool:
         pending: dict[Future, Path] = {pool.submit(check_file, p): p for p in paths}
         try:
