@@ -689,6 +689,9 @@ def elaborate(netlist: nl.Netlist) -> Circuit:
             if any(r.label == ref.label for r in circuit.records):
                 continue
             circuit.records.append(ref)
+    from .measure import validate  # measure and check lines, before anything runs
+
+    validate(circuit)
     return circuit
 
 

@@ -8,7 +8,7 @@ values. Nodes with no DC path get a tiny leak (see :mod:`mna.topology`).
 from __future__ import annotations
 
 import time as _time
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Sequence
 
 import numpy as np
 
@@ -19,7 +19,7 @@ from ..system import Probe, System
 from .common import compute_signal, dc_leak, default_signals, prepare, unit_label
 
 if TYPE_CHECKING:  # pragma: no cover
-    from ..circuit import Circuit
+    from ..circuit import Circuit, SignalRef
 
 
 def solve_dc(system: System, factorizer: Factorizer, leak: np.ndarray | None, t: float = 0.0,
@@ -44,8 +44,11 @@ def solve_dc(system: System, factorizer: Factorizer, leak: np.ndarray | None, t:
     return result.x, result.iterations
 
 
-def operating_point(circuit: "Circuit") -> OperatingPoint:
-    """Solve the operating point and report every node, current and shaft speed."""
+def operating_point(circuit: "Circuit", signals: Sequence["SignalRef"] = ()) -> OperatingPoint:
+    """Solve the operating point and report every node, current and shaft speed.
+
+    ``signals`` adds quantities beyond those (``p(R1)`` for a check, say).
+    """
     started = _time.perf_counter()
     system, report = prepare(circuit)
     factorizer = Factorizer(system)
@@ -54,6 +57,7 @@ def operating_point(circuit: "Circuit") -> OperatingPoint:
                   rates={k: np.zeros(1) for k in range(system.Cs.shape[0])})
     labels = {r.label: r for r in default_signals(circuit)}
     labels.update({r.label: r for r in circuit.records})
+    labels.update({r.label: r for r in signals})
     values = {label: float(compute_signal(ref, circuit, probe)[0]) + 0.0 for label, ref in labels.items()}
     return OperatingPoint(
         values=values,
