@@ -271,6 +271,11 @@ class System:
         pts = [p for p in pts if len(p)]
         return np.unique(np.concatenate(pts)) if pts else np.empty(0)
 
+    def jumps(self, start: float, stop: float) -> np.ndarray:
+        """Corners in (start, stop] where a source value jumps, sorted (s)."""
+        pts = [p for p in (e.jumps(start, stop) for e in self.circuit.elements.values()) if len(p)]
+        return np.unique(np.concatenate(pts)) if pts else np.empty(0)
+
     def describe_unknowns(self, indices) -> tuple[str, ...]:
         return tuple(self.names[i] for i in indices)
 

@@ -19,10 +19,11 @@ cache.
 
 **Corners and events**: every corner (waveform kink, PWM edge, schedule
 time) is landed on exactly. At a corner, and whenever a switched element
-changes state, the integration history is cut: the next step is a
-first-order (backward Euler) step, so the trapezoidal rule does not ring on
-the edge. A state change also records a second sample at the same time,
-solved just after the change (the switch voltage at 0+).
+changes state, the integration history is cut: the next steps are
+first-order (backward Euler) steps, so the trapezoidal rule does not ring on
+the edge. A state change, and an ideal source edge (zero rise or fall
+time), also record a second sample at the same time, solved just after it
+(the switch voltage at 0+), so the waveforms hold both sides of the jump.
 
 **Failure**: a step whose Newton iteration does not converge is retried at
 a quarter of its length, down to ``min-step``; then the run stops with a
@@ -287,6 +288,8 @@ class _Run:
         fixed = cfg.step is not None
         grid = time_grid(until, cfg.step, corners) if fixed else None
         grid_corner = _corner_flags(grid, corners) if fixed else None
+        jumps = system.jumps(0.0, until)
+        jumps = jumps[(jumps > 0) & (jumps < until)]
         grid_k = 1
 
         x = self.initial_point()
@@ -437,7 +440,8 @@ class _Run:
                 grid_k += 1
             # -- corners and events cut the history
             restart = landing and (not fixed or grid_corner[grid_k - 1])
-            if self.event_batches and self.update_events(t, x):
+            jumped = restart and jumps.size and _contains(jumps, t)
+            if jumped or (self.event_batches and self.update_events(t, x)):
                 x = self.jump(x, t, max(h_try, cfg.min_step) * JUMP_FRACTION, q)
                 q_jump = self.charges(x, t)
                 if Cs is not None:
@@ -504,6 +508,11 @@ def _ladder(h: float, until: float) -> float:
     """Round a step down to the ladder 2**(k/LADDER) * until (few distinct matrices)."""
     k = math.floor(LADDER * math.log2(h / until) + 1e-9)
     return until * 2.0 ** (k / LADDER)
+
+
+def _contains(sorted_times: np.ndarray, t: float) -> bool:
+    i = np.searchsorted(sorted_times, t)
+    return bool(i < sorted_times.size and sorted_times[i] == t)
 
 
 def _corner_flags(grid: np.ndarray, corners: np.ndarray) -> np.ndarray:

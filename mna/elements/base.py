@@ -207,6 +207,11 @@ class Element:
     def corners(self, start: float, stop: float) -> np.ndarray:
         return np.empty(0)
 
+    def jumps(self, start: float, stop: float) -> np.ndarray:
+        """The corners where a source value jumps (ideal edges): the solver
+        records the values just before and just after each one."""
+        return np.empty(0)
+
     # -- results -------------------------------------------------------------
     def output(self, quantity: str, probe: "Probe") -> np.ndarray:
         raise NotImplementedError(f"{self.keyword} {self.name} has no output {quantity!r}")
