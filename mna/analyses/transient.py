@@ -269,7 +269,7 @@ class _Run:
     def jump(self, x: np.ndarray, t: float, h0: float, q: np.ndarray) -> np.ndarray:
         """Values just after t: a tiny backward-Euler step from the charges q."""
         try:
-            x_new = self.solve(x, t, 1.0 / h0, -q / h0)
+            x_new = self.solve(x, t + h0, 1.0 / h0, -q / h0)  # sources just after t
         except SingularMatrix as exc:
             raise_singular(exc, time=t, step=h0, what=f"solving the instant after t = {t:.6g} s")
         if x_new is None:
