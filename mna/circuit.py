@@ -24,6 +24,7 @@ checks its dimension, and validates the ``simulate``, ``record``,
 from __future__ import annotations
 
 import difflib
+import re
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Iterable, Sequence
@@ -33,7 +34,7 @@ from .elements.base import ELEMENT, ELECTRICAL, REFERENCE, SHAFT, Arg, Element
 from .elements.registry import lookup, suggest
 from .errors import InputError, NetlistSyntaxError, Span, UnitsError, UnknownNameError
 from .expressions import evaluate
-from .units import DIMENSIONLESS, HERTZ, SECOND, Dimension, Quantity, describe, parse_quantity
+from .units import DIMENSIONLESS, HERTZ, PREFIXES, SECOND, Dimension, Quantity, describe, parse_quantity
 from .units import UnitError
 from .waveforms import Constant, Piecewise, Pulse, Sine, Step, Waveform
 
@@ -98,6 +99,10 @@ _WAVEFORM_ARGS: dict[str, dict[str, tuple[str, Any]]] = {
 _ROLE_DIMENSION = {"time": SECOND, "frequency": HERTZ, "fraction": DIMENSIONLESS, "angle": DIMENSIONLESS}
 
 
+_NUMBER_PART = re.compile(r"^[ \t]*[-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?")
+_UNIT_TOKEN = re.compile(r"[^\W\d_]+")
+
+
 def _check_dimension(q: Quantity, want: Dimension, what: str, span: Span | None, got_text: str | None = None) -> float:
     if q.dim != want:
         got = describe(q.dim)
@@ -105,6 +110,44 @@ def _check_dimension(q: Quantity, want: Dimension, what: str, span: Span | None,
             got = f"{got_text} ({describe(q.dim)})"
         raise UnitsError(f"{what} needs {describe(want)}, got {got}", span)
     return q.value
+
+
+def _is_hertz(text: str) -> bool:
+    """Whether a quantity's text uses hertz (``50 Hz``, ``1.2kHz``) in its unit."""
+    unit = _NUMBER_PART.sub("", text, count=1)
+    return any(tok[:-2] in PREFIXES or tok == "Hz" for tok in _UNIT_TOKEN.findall(unit) if tok.endswith("Hz"))
+
+
+def _hertz_literal(expr: nl.Expr) -> nl.Number | None:
+    """The first literal in hertz inside an angular-speed value, or None.
+
+    A waveform's own ``frequency=`` (and its times) are not speeds and are
+    not looked at; only the parts that carry the argument's value are.
+    """
+    if isinstance(expr, nl.Number):
+        return expr if _is_hertz(expr.text) else None
+    if isinstance(expr, nl.BinaryOp):
+        return _hertz_literal(expr.left) or _hertz_literal(expr.right)
+    if isinstance(expr, nl.Negate):
+        return _hertz_literal(expr.operand)
+    if isinstance(expr, nl.Call):
+        if expr.func in _WAVEFORM_ARGS:
+            spec = _WAVEFORM_ARGS[expr.func]
+            parts = [v for k, v, _ in expr.named if spec.get(k, ("",))[0] == "value"]
+        elif expr.func == "piecewise":
+            parts = [a.value for a in expr.args if isinstance(a, nl.Pair)]
+        else:
+            parts = list(expr.args) + [v for _, v, _ in expr.named]
+        for part in parts:
+            found = _hertz_literal(part)
+            if found is not None:
+                return found
+    return None
+
+
+def _hertz_message(what: str, text: str) -> str:
+    return (f"{what} is an angular speed, and hertz is ambiguous there (cycles or radians "
+            f"per second?); got {text}: write it in rad/s or rpm (1 rev/s = 2*pi rad/s = 60 rpm)")
 
 
 class Elaborator:
@@ -201,6 +244,10 @@ class Elaborator:
         return word
 
     def argument(self, arg: Arg, expr: nl.Expr, what: str) -> Any:
+        if arg.angular:
+            hertz = _hertz_literal(expr)
+            if hertz is not None:
+                raise UnitsError(_hertz_message(what, hertz.text), hertz.span)
         if arg.kind == "quantity":
             value = self.quantity(expr, arg.dimension, what)
         elif arg.kind == "waveform":
@@ -620,6 +667,8 @@ def _python_value(arg: Arg, value: Any, what: str) -> Any:
             return st.value
         return value
     if isinstance(value, str):
+        if arg.angular and _is_hertz(value):
+            raise UnitsError(_hertz_message(what, value))
         try:
             q = parse_quantity(value)
         except UnitError as exc:
