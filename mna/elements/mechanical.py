@@ -79,10 +79,9 @@ def smooth_sign(u: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     and ``s'(0) = 1.5``. Used for a load torque that opposes rotation
     (``u = w / band``) and for a machine's brush drop (``u = i / band``).
     """
-    inside = np.abs(u) < 1.0
-    s = np.where(inside, 1.5 * u - 0.5 * u**3, np.sign(u))
-    ds = np.where(inside, 1.5 * (1.0 - u**2), 0.0)
-    return s, ds
+    c = np.clip(u, -1.0, 1.0)  # the cubic meets +-1 with zero slope at c = +-1
+    c2 = c * c
+    return c * (1.5 - 0.5 * c2), 1.5 * (1.0 - c2)
 
 
 class WaveformSet:
@@ -100,14 +99,18 @@ class WaveformSet:
         order = np.concatenate([np.asarray(ks, dtype=np.int64) for ks in groups.values()]) if waves else np.empty(0, np.int64)
         self._order = np.empty(order.size, dtype=np.int64)
         self._order[order] = np.arange(order.size)
-        self._all_constant = all(isinstance(w, Constant) for w in waves)
-        self._constant = np.array([w.level for w in waves]) if self._all_constant else None
+        constant = all(isinstance(w, Constant) for w in waves)
+        self._constant = np.array([w.level for w in waves]) if constant else None
+        self._last: tuple[float, np.ndarray] | None = None
 
     def __call__(self, t: float) -> np.ndarray:
         if self._constant is not None:
             return self._constant
-        values = np.concatenate([np.asarray(ev(t), dtype=float) for ev in self._evaluators])
-        return values[self._order]
+        if self._last is not None and self._last[0] == t:  # Newton iterates at one time
+            return self._last[1]
+        values = np.concatenate([np.asarray(ev(t), dtype=float) for ev in self._evaluators])[self._order]
+        self._last = (t, values)
+        return values
 
 
 def _not_frame(element: Element, terminal: str) -> None:
@@ -230,16 +233,14 @@ class LoadBatch(NonlinearBatch):
         self.jf_cols = rows
         self.fan = np.array([e.fan_coefficient for e in elements])
         self.band = np.array([e.params["band"] for e in elements])
-        self.has_torque = np.array([e.opposing for e in elements])
         self.torques = WaveformSet([e.waveform if e.opposing else Constant(0.0) for e in elements])
 
     def evaluate(self, x, t):
         w = x[self.f_rows]
         s, ds = smooth_sign(w / self.band)
         level = self.torques(t)
-        f = level * s + self.fan * w * np.abs(w)
-        jf = level * ds / self.band + 2.0 * self.fan * np.abs(w)
-        return f, jf, self.empty, self.empty
+        fan_w = self.fan * np.abs(w)
+        return level * s + fan_w * w, level * ds / self.band + 2.0 * fan_w, self.empty, self.empty
 
 
 class Load(ShaftPart):
