@@ -656,7 +656,7 @@ def _python_value(arg: Arg, value: Any, what: str) -> Any:
     if arg.kind == "waveform":
         if isinstance(value, Waveform):
             return value
-        return Constant(_python_value(Arg(arg.name, arg.dimension), value, what))
+        return Constant(_python_value(Arg(arg.name, arg.dimension, angular=arg.angular), value, what))
     if arg.kind == "choice":
         if value not in arg.choices:
             raise InputError(f"{what} must be one of {', '.join(arg.choices)}")
