@@ -79,7 +79,9 @@ def smooth_sign(u: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     and ``s'(0) = 1.5``. Used for a load torque that opposes rotation
     (``u = w / band``) and for a machine's brush drop (``u = i / band``).
     """
-    c = np.clip(u, -1.0, 1.0)  # the cubic meets +-1 with zero slope at c = +-1
+    # clip to [-1, 1] (minimum/maximum: cheaper than np.clip on small arrays);
+    # the cubic meets +-1 with zero slope at c = +-1, so no branch is needed
+    c = np.minimum(np.maximum(u, -1.0), 1.0)
     c2 = c * c
     return c * (1.5 - 0.5 * c2), 1.5 * (1.0 - c2)
 
