@@ -145,6 +145,15 @@ def _hertz_literal(expr: nl.Expr) -> nl.Number | None:
     return None
 
 
+#: How an angular-speed argument's unit is described (hertz is refused there).
+ANGULAR_TEXT = "an angular speed in rad/s or rpm"
+
+
+def _angular_units_error(exc: UnitsError) -> UnitsError:
+    """A dimension error on an angular speed, worded without the hertz it refuses."""
+    return UnitsError(exc.message.replace(describe(HERTZ), ANGULAR_TEXT), exc.span, hint=exc.hint)
+
+
 def _hertz_message(what: str, text: str) -> str:
     return (f"{what} is an angular speed, and hertz is ambiguous there (cycles or radians "
             f"per second?); got {text}: write it in rad/s or rpm (1 rev/s = 2*pi rad/s = 60 rpm)")
@@ -248,6 +257,13 @@ class Elaborator:
             hertz = _hertz_literal(expr)
             if hertz is not None:
                 raise UnitsError(_hertz_message(what, hertz.text), hertz.span)
+            try:
+                return self._argument(arg, expr, what)
+            except UnitsError as exc:
+                raise _angular_units_error(exc) from None
+        return self._argument(arg, expr, what)
+
+    def _argument(self, arg: Arg, expr: nl.Expr, what: str) -> Any:
         if arg.kind == "quantity":
             value = self.quantity(expr, arg.dimension, what)
         elif arg.kind == "waveform":
@@ -571,14 +587,15 @@ class Circuit:
         if q in node_quantities:
             domain = node_quantities[q][0]
             self._require_node(target, domain, expr.args[0].span)
-        if q in ("i", "p", "torque", "emf"):
+        if q in ("i", "p", "torque", "emf", "pmech", "torque_out"):
             close = difflib.get_close_matches(target, list(self.elements), n=1)
             raise UnknownNameError(
                 f"no element named {target!r}", expr.args[0].span,
                 hint=f"did you mean {close[0]!r}?" if close else None,
             )
         raise UnknownNameError(f"unknown quantity {q}()", expr.span,
-                               hint="quantities: v(node), v(a, b), i(E), p(E), w(shaft), rpm(shaft)")
+                               hint="quantities: v(node), v(a, b), i(E), p(E), w(shaft), rpm(shaft), "
+                                    "angle(shaft), torque(E), emf(E), pmech(E)")
 
     def _require_node(self, node: str, domain: str, span: Span | None) -> None:
         have = self.nodes.get(node)
@@ -673,7 +690,10 @@ def _python_value(arg: Arg, value: Any, what: str) -> Any:
             q = parse_quantity(value)
         except UnitError as exc:
             raise UnitsError(f"{what}: {exc}") from None
-        number = _check_dimension(q, arg.dimension, what, None, value)
+        try:
+            number = _check_dimension(q, arg.dimension, what, None, value)
+        except UnitsError as exc:
+            raise (_angular_units_error(exc) if arg.angular else exc) from None
     elif isinstance(value, Quantity):
         number = _check_dimension(value, arg.dimension, what, None)
     else:

@@ -15,6 +15,7 @@ from pathlib import Path
 import pytest
 
 import mna
+from mna.circuit import ANGULAR_TEXT
 from mna.elements.base import REQUIRED
 from mna.elements.registry import BUILTIN, element_kinds
 from mna.errors import InputError, TopologyError, UnitsError
@@ -147,7 +148,8 @@ def _unit_cases():
             if arg.kind not in ("quantity", "waveform") or arg.dimension is None:
                 continue
             wrong = "3 V" if arg.dimension != mna.units.VOLT else "3 A"
-            yield pytest.param(keyword, arg.name, wrong, describe(arg.dimension), id=f"{keyword}-{arg.name}")
+            expected = ANGULAR_TEXT if arg.angular else describe(arg.dimension)
+            yield pytest.param(keyword, arg.name, wrong, expected, id=f"{keyword}-{arg.name}")
 
 
 @pytest.mark.parametrize("keyword, argument, wrong, expected", list(_unit_cases()))
@@ -189,6 +191,24 @@ def test_angular_speeds_in_hertz_are_refused_as_ambiguous(line):
     assert err.value.line == 1 and "Hz" in line[err.value.column - 1:]
 
 
+def test_the_language_specification_examples_parse():
+    # The rotating-machine lines of the core language specification, verbatim.
+    text = """
+voltage-source  V1   a -> b   24 V
+resistor        R0   b -> gnd 1 ohm
+dc-machine      M1   a -> b   shaft=rotor  resistance=0.8 ohm  inductance=1.2 mH  constant=0.05 V*s/rad
+coil-generator  G1   a -> b   shaft=rotor  turns=200  field=0.5 T  area=40 cm^2
+inertia         J1   rotor    2e-4 kg*m^2  initial=0 rpm
+friction        B1   rotor -> frame   1e-5 N*m*s/rad
+load            T1   rotor    torque=0.2 N*m
+speed-source    W1   rotor    3000 rpm
+record w(rotor), rpm(rotor), torque(M1), emf(M1), angle(rotor)
+"""
+    c = mna.parse(text)
+    assert {e.keyword for e in c.elements.values()} >= set(MACHINE_KINDS) - {"gear"}
+    assert c.elements["G1"].flux_linkage == pytest.approx(200 * 0.5 * 40e-4, rel=1e-12)
+
+
 def test_a_sine_speed_keeps_its_frequency_in_hertz():
     # Only the speed values are angular speeds: sine()'s own frequency= is a frequency.
     c = mna.parse("speed-source W rotor sine(amplitude=10 rad/s, offset=100 rad/s, frequency=2 Hz)\n")
@@ -199,6 +219,8 @@ def test_hertz_is_refused_from_python_too():
     c = mna.Circuit()
     with pytest.raises(UnitsError, match="hertz is ambiguous"):
         c.add("speed-source", "W1", "rotor", "50 Hz")
+    with pytest.raises(UnitsError, match="needs an angular speed in rad/s or rpm, got 5 V"):
+        c.add("inertia", "J1", "rotor", "1 kg*m^2", initial="5 V")
     c.add("speed-source", "W1", "rotor", "3000 rpm")
     assert c.elements["W1"].waveform.value(0.0) == pytest.approx(3000 * RPM, rel=1e-15)
 
