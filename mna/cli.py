@@ -234,6 +234,7 @@ def _fmt(value: float, unit: str) -> str:
 
 
 def cmd_kinds() -> int:
+    from .circuit import ANGULAR_TEXT
     from .elements.registry import element_kinds
     from .units import describe
 
@@ -251,7 +252,10 @@ def cmd_kinds() -> int:
             print(f"    {cls.summary}")
         for arg in cls.arguments:
             unit = describe(arg.dimension) if arg.dimension is not None else ", ".join(arg.choices) or "see docs"
-            default = "required" if arg.required else f"default {arg.default!r}"
+            if arg.angular:
+                unit = ANGULAR_TEXT
+            default = ("required" if arg.required else "optional" if arg.default is None
+                       else f"default {arg.default!r}")
             print(f"    {arg.name}=  {unit}; {default}")
     return EXIT_OK
 

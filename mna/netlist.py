@@ -453,10 +453,13 @@ def make_number(text: str, span: Span) -> Number:
 # --------------------------------------------------------------------------
 # Fast path for ``KIND NAME a -> b [VALUE] [key=VALUE ...]`` on one line.
 
+# As the grammar's QUANTITY: a unit is never followed by "=" (or a letter...),
+# so in ``turns=10 field=1 T`` the ``10`` has no unit ``field``.
 _Q = (
     r"[-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?"
     r"(?:[ \t]*[A-Za-z\u00b5\u03bc\u03a9%]+(?:\^-?\d+)?"
-    r"(?:[*/][A-Za-z\u00b5\u03bc\u03a9%]+(?:\^-?\d+)?)*)?"
+    r"(?:[*/][A-Za-z\u00b5\u03bc\u03a9%]+(?:\^-?\d+)?)*"
+    r"(?![\w=(\u00b5\u03bc\u03a9%^*/]))?"
 )
 _FAST = re.compile(
     r"(?P<kind>[a-z][a-z0-9]*(?:-[a-z0-9]+)*)[ \t]+"

@@ -115,12 +115,16 @@ def newton(
     reltol: float = 1e-6,
     extra_diag: np.ndarray | None = None,
     source_scale: float = 1.0,
+    hold: tuple[np.ndarray, np.ndarray] | None = None,
 ) -> NewtonResult:
     """Solve ``alpha*q(x) + history + f(x, t) = 0`` from the guess ``x0``.
 
     ``extra_diag`` adds conductances to the diagonal (a DC leak, a gmin
     step); ``source_scale`` multiplies every independent source (source
-    stepping). Raises :class:`SingularMatrix`.
+    stepping); ``hold`` = (rows, values) replaces those rows by
+    ``x[row] = value`` (the DC hold, see
+    :meth:`mna.system.Stamper.hold_at_dc`). Raises
+    :class:`SingularMatrix`.
     """
     s = system.add_sources(np.zeros(system.n), t)
     if source_scale != 1.0:
@@ -128,10 +132,13 @@ def newton(
     if system.is_piecewise_linear:
         f0, q0, jf, jq = system.affine_parts(t)
         data = system.matrix_data(alpha, jf, jq, extra_diag)
-        lu = factorizer.factor(data)
         rhs = s - history if history is not None else s
         if f0 is not None:
             rhs = rhs - f0 - (alpha * q0 if alpha else 0.0)
+        if hold is not None:
+            system.hold_matrix(data, hold[0])
+            rhs[hold[0]] = hold[1]
+        lu = factorizer.factor(data)
         factorizer.solves += 1
         return NewtonResult(lu.solve(rhs), 1, True)
     x = x0.copy()
@@ -145,6 +152,9 @@ def newton(
         if extra_diag is not None:
             residual += extra_diag * x
         data = system.matrix_data(alpha, jf, jq, extra_diag)
+        if hold is not None:
+            system.hold_matrix(data, hold[0])
+            residual[hold[0]] = x[hold[0]] - hold[1]
         lu = factorizer.factor(data)
         dx = lu.solve(-residual)
         factorizer.solves += 1

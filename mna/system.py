@@ -75,6 +75,7 @@ class Stamper:
         self.sources: list[tuple[int, float, Waveform]] = []
         self.states: list[dict[int, float]] = []
         self.q_initial = np.zeros(self.n)
+        self.dc_holds: dict[int, float] = {}
         self.current: Element | None = None
 
     # -- indices ---------------------------------------------------------------
@@ -138,6 +139,17 @@ class Stamper:
         if row >= 0:
             self.q_initial[row] += value
 
+    def hold_at_dc(self, index: int, value: float) -> None:
+        """At the DC operating point, replace row ``index`` by ``x[index] = value``.
+
+        For a state whose rate equation has no steady state of its own, such
+        as a coil generator's angle (``d angle/dt = w``): the operating point
+        freezes it at its initial value instead of leaving it undetermined.
+        Transient steps keep the row's own equation.
+        """
+        if index >= 0:
+            self.dc_holds[index] = float(value)
+
 
 @dataclass
 class BatchSlot:
@@ -172,6 +184,9 @@ class System:
     abstol: np.ndarray
     diag_pos: np.ndarray
     elements_by_name: dict[str, Element] = field(default_factory=dict)
+    dc_hold_rows: np.ndarray = field(default_factory=lambda: np.empty(0, dtype=np.int64))
+    dc_hold_values: np.ndarray = field(default_factory=lambda: np.empty(0))
+    dc_hold_mask: np.ndarray | None = None  # CSC data entries in the held rows
 
     @property
     def n(self) -> int:
@@ -236,6 +251,18 @@ class System:
         if extra_diag is not None:
             data[self.diag_pos] += extra_diag
         return data
+
+    @property
+    def dc_hold(self) -> tuple[np.ndarray, np.ndarray] | None:
+        """Rows held at the DC operating point and their values, or None."""
+        if not self.dc_hold_rows.size:
+            return None
+        return self.dc_hold_rows, self.dc_hold_values
+
+    def hold_matrix(self, data: np.ndarray, rows: np.ndarray) -> None:
+        """Make the held ``rows`` of the matrix with CSC ``data`` identity rows (in place)."""
+        data[self.dc_hold_mask] = 0.0
+        data[self.diag_pos[rows]] = 1.0
 
     def matrix(self, data: np.ndarray) -> sp.csc_matrix:
         return sp.csc_matrix((data, self.indices, self.indptr), shape=(self.n, self.n))
@@ -363,6 +390,8 @@ def compile_circuit(circuit: "Circuit") -> System:
             st_v.append(v)
     Cs = sp.csr_matrix((st_v, (st_r, st_c)), shape=(n_states, n))
     abstol = np.array([ABSTOL.get(d, DEFAULT_ABSTOL) for d in s.dims])
+    hold_rows = np.array(sorted(s.dc_holds), dtype=np.int64)
+    hold_values = np.array([s.dc_holds[r] for r in hold_rows.tolist()], dtype=float)
     return System(
         circuit=circuit,
         names=s.names,
@@ -386,6 +415,9 @@ def compile_circuit(circuit: "Circuit") -> System:
         abstol=abstol,
         diag_pos=diag_pos,
         elements_by_name=dict(circuit.elements),
+        dc_hold_rows=hold_rows,
+        dc_hold_values=hold_values,
+        dc_hold_mask=np.isin(indices, hold_rows) if hold_rows.size else None,
     )
 
 

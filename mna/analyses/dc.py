@@ -3,6 +3,8 @@
 d/dt = 0: inductors are shorts (their winding resistance remains),
 capacitors are open, inertias carry no torque, sources take their t = 0
 values. Nodes with no DC path get a tiny leak (see :mod:`mna.topology`).
+States with no steady state of their own (a coil generator's angle) are
+held at their initial values (:meth:`mna.system.Stamper.hold_at_dc`).
 """
 
 from __future__ import annotations
@@ -27,7 +29,8 @@ def solve_dc(system: System, factorizer: Factorizer, leak: np.ndarray | None, t:
     """x at the operating point and the Newton iterations it took."""
     x0 = np.zeros(system.n) if guess is None else guess
     try:
-        result = newton(system, factorizer, x0, t, 0.0, None, extra_diag=leak, max_iterations=100)
+        result = newton(system, factorizer, x0, t, 0.0, None, extra_diag=leak, max_iterations=100,
+                        hold=system.dc_hold)
     except SingularMatrix as exc:
         what = "DC operating point"
         if exc.unknowns and all(u.startswith("i(") for u in exc.unknowns):

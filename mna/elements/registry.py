@@ -26,6 +26,13 @@ BUILTIN = {
     "inductor": "mna.elements.passive:Inductor",
     "voltage-source": "mna.elements.sources:VoltageSource",
     "current-source": "mna.elements.sources:CurrentSource",
+    "dc-machine": "mna.elements.machines:DCMachine",
+    "coil-generator": "mna.elements.machines:CoilGenerator",
+    "inertia": "mna.elements.mechanical:Inertia",
+    "friction": "mna.elements.mechanical:Friction",
+    "load": "mna.elements.mechanical:Load",
+    "speed-source": "mna.elements.mechanical:SpeedSource",
+    "gear": "mna.elements.mechanical:Gear",
 }
 
 _extra: dict[str, type[Element]] = {}
