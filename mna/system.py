@@ -287,7 +287,7 @@ class System:
     def charges(self, x: np.ndarray, t: float = 0.0) -> np.ndarray:
         """q(x): linear charges plus any nonlinear ones."""
         q = self.C @ x
-        if self.batches:
+        if any(slot.batch.q_rows.size for slot in self.batches):
             q += self.evaluate_batches(x, t)[1]
         return q
 

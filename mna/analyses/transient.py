@@ -216,7 +216,10 @@ class _Run:
                     rhs -= alpha * q0
             self.factorizer.solves += 1
             self.stats["newton_iterations"] += 1
-            return lu.solve(rhs)
+            x = lu.solve(rhs)
+            if not np.isfinite(x).all():  # a numerically singular matrix
+                raise SingularMatrix(("(the circuit equations are numerically singular at this step)",))
+            return x
         res = newton(system, self.factorizer, x_guess, t, alpha, history)
         self.stats["newton_iterations"] += res.iterations
         self._worst = res.worst
