@@ -494,12 +494,20 @@ class _Run:
 
 
 def _divided_difference(ts: list[float], qs: list[np.ndarray]) -> np.ndarray:
-    """The highest divided difference through the given points (vector-valued)."""
-    table = list(qs)
+    """The highest divided difference through the given points (vector-valued).
+
+    Written as its explicit weights, sum_i q_i / prod_{j != i} (t_i - t_j),
+    so it costs one small matrix-vector product.
+    """
     n = len(ts)
-    for level in range(1, n):
-        table = [(table[i + 1] - table[i]) / (ts[i + level] - ts[i]) for i in range(n - level)]
-    return table[0]
+    weights = np.empty(n)
+    for i in range(n):
+        d = 1.0
+        for j in range(n):
+            if j != i:
+                d *= ts[i] - ts[j]
+        weights[i] = 1.0 / d
+    return weights @ np.asarray(qs)
 
 
 def _snap(h: float, step: float) -> float:
