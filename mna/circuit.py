@@ -25,6 +25,7 @@ from __future__ import annotations
 
 import difflib
 import gc
+import re
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -35,7 +36,18 @@ from .elements.base import ELEMENT, ELECTRICAL, REFERENCE, SHAFT, Arg, Element
 from .elements.registry import lookup, suggest
 from .errors import InputError, NetlistSyntaxError, Span, UnitsError, UnknownNameError
 from .expressions import evaluate
-from .units import AMPERE, DIMENSIONLESS, HERTZ, SECOND, VOLT, Dimension, Quantity, describe, parse_quantity
+from .units import (
+    AMPERE,
+    DIMENSIONLESS,
+    HERTZ,
+    PREFIXES,
+    SECOND,
+    VOLT,
+    Dimension,
+    Quantity,
+    describe,
+    parse_quantity,
+)
 from .units import UnitError
 from .waveforms import Constant, Piecewise, Pulse, Sine, Step, Waveform
 
@@ -110,6 +122,10 @@ _WAVEFORM_ARGS: dict[str, dict[str, tuple[str, Any]]] = {
 _ROLE_DIMENSION = {"time": SECOND, "frequency": HERTZ, "fraction": DIMENSIONLESS, "angle": DIMENSIONLESS}
 
 
+_NUMBER_PART = re.compile(r"^[ \t]*[-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?")
+_UNIT_TOKEN = re.compile(r"[^\W\d_]+")
+
+
 def _check_dimension(q: Quantity, want: Dimension, what: str, span: Span | None, got_text: str | None = None) -> float:
     if q.dim != want:
         got = describe(q.dim)
@@ -117,6 +133,53 @@ def _check_dimension(q: Quantity, want: Dimension, what: str, span: Span | None,
             got = f"{got_text} ({describe(q.dim)})"
         raise UnitsError(f"{what} needs {describe(want)}, got {got}", span)
     return q.value
+
+
+def _is_hertz(text: str) -> bool:
+    """Whether a quantity's text uses hertz (``50 Hz``, ``1.2kHz``) in its unit."""
+    unit = _NUMBER_PART.sub("", text, count=1)
+    return any(tok[:-2] in PREFIXES or tok == "Hz" for tok in _UNIT_TOKEN.findall(unit) if tok.endswith("Hz"))
+
+
+def _hertz_literal(expr: nl.Expr) -> nl.Number | None:
+    """The first literal in hertz inside an angular-speed value, or None.
+
+    A waveform's own ``frequency=`` (and its times) are not speeds and are
+    not looked at; only the parts that carry the argument's value are.
+    """
+    if isinstance(expr, nl.Number):
+        return expr if _is_hertz(expr.text) else None
+    if isinstance(expr, nl.BinaryOp):
+        return _hertz_literal(expr.left) or _hertz_literal(expr.right)
+    if isinstance(expr, nl.Negate):
+        return _hertz_literal(expr.operand)
+    if isinstance(expr, nl.Call):
+        if expr.func in _WAVEFORM_ARGS:
+            spec = _WAVEFORM_ARGS[expr.func]
+            parts = [v for k, v, _ in expr.named if spec.get(k, ("",))[0] == "value"]
+        elif expr.func == "piecewise":
+            parts = [a.value for a in expr.args if isinstance(a, nl.Pair)]
+        else:
+            parts = list(expr.args) + [v for _, v, _ in expr.named]
+        for part in parts:
+            found = _hertz_literal(part)
+            if found is not None:
+                return found
+    return None
+
+
+#: How an angular-speed argument's unit is described (hertz is refused there).
+ANGULAR_TEXT = "an angular speed in rad/s or rpm"
+
+
+def _angular_units_error(exc: UnitsError) -> UnitsError:
+    """A dimension error on an angular speed, worded without the hertz it refuses."""
+    return UnitsError(exc.message.replace(describe(HERTZ), ANGULAR_TEXT), exc.span, hint=exc.hint)
+
+
+def _hertz_message(what: str, text: str) -> str:
+    return (f"{what} is an angular speed, and hertz is ambiguous there (cycles or radians "
+            f"per second?); got {text}: write it in rad/s or rpm (1 rev/s = 2*pi rad/s = 60 rpm)")
 
 
 class Elaborator:
@@ -213,6 +276,17 @@ class Elaborator:
         return word
 
     def argument(self, arg: Arg, expr: nl.Expr, what: str) -> Any:
+        if arg.angular:
+            hertz = _hertz_literal(expr)
+            if hertz is not None:
+                raise UnitsError(_hertz_message(what, hertz.text), hertz.span)
+            try:
+                return self._argument(arg, expr, what)
+            except UnitsError as exc:
+                raise _angular_units_error(exc) from None
+        return self._argument(arg, expr, what)
+
+    def _argument(self, arg: Arg, expr: nl.Expr, what: str) -> Any:
         if arg.kind == "quantity":
             value = self.quantity(expr, arg.dimension, what)
         elif arg.kind == "waveform":
@@ -536,14 +610,15 @@ class Circuit:
         if q in node_quantities:
             domain = node_quantities[q][0]
             self._require_node(target, domain, expr.args[0].span)
-        if q in ("i", "p", "torque", "emf"):
+        if q in ("i", "p", "torque", "emf", "pmech", "torque_out"):
             close = difflib.get_close_matches(target, list(self.elements), n=1)
             raise UnknownNameError(
                 f"no element named {target!r}", expr.args[0].span,
                 hint=f"did you mean {close[0]!r}?" if close else None,
             )
         raise UnknownNameError(f"unknown quantity {q}()", expr.span,
-                               hint="quantities: v(node), v(a, b), i(E), p(E), w(shaft), rpm(shaft)")
+                               hint="quantities: v(node), v(a, b), i(E), p(E), w(shaft), rpm(shaft), "
+                                    "angle(shaft), torque(E), emf(E), pmech(E)")
 
     def _require_node(self, node: str, domain: str, span: Span | None) -> None:
         have = self.nodes.get(node)
@@ -621,7 +696,7 @@ def _python_value(arg: Arg, value: Any, what: str) -> Any:
     if arg.kind == "waveform":
         if isinstance(value, Waveform):
             return value
-        return Constant(_python_value(Arg(arg.name, arg.dimension), value, what))
+        return Constant(_python_value(Arg(arg.name, arg.dimension, angular=arg.angular), value, what))
     if arg.kind == "choice":
         if value not in arg.choices:
             raise InputError(f"{what} must be one of {', '.join(arg.choices)}")
@@ -632,11 +707,16 @@ def _python_value(arg: Arg, value: Any, what: str) -> Any:
             return st.value
         return value
     if isinstance(value, str):
+        if arg.angular and _is_hertz(value):
+            raise UnitsError(_hertz_message(what, value))
         try:
             q = parse_quantity(value)
         except UnitError as exc:
             raise UnitsError(f"{what}: {exc}") from None
-        number = _check_dimension(q, arg.dimension, what, None, value)
+        try:
+            number = _check_dimension(q, arg.dimension, what, None, value)
+        except UnitsError as exc:
+            raise (_angular_units_error(exc) if arg.angular else exc) from None
     elif isinstance(value, Quantity):
         number = _check_dimension(value, arg.dimension, what, None)
     else:
@@ -689,6 +769,9 @@ def elaborate(netlist: nl.Netlist) -> Circuit:
             if any(r.label == ref.label for r in circuit.records):
                 continue
             circuit.records.append(ref)
+    from .measure import validate  # measure and check lines, before anything runs
+
+    validate(circuit)
     return circuit
 
 

@@ -1,11 +1,14 @@
 """The ``mna`` command.
 
-    mna run FILE [--out DIR] [--no-plot]   run the file's analyses, write CSV, PNG, JSON
+    mna run FILE [--out DIR] [--no-plot] [--quiet]   run the file's analyses, write CSV, PNG, JSON
+    mna check FILE|DIR ... [--junit REPORT.xml] [--jobs N] [--quiet]
+                                           CI mode: run every circuit file, summarise its checks
     mna kinds                              list the element kinds and their arguments
 
 Exit status: 0 all went well (every check passed), 1 a check failed,
 2 the input is wrong (syntax, units, names, topology), 3 the simulation
 failed (singular matrix, no convergence), 4 an internal error of mna.
+``mna check`` exits with the highest status over its files.
 """
 
 from __future__ import annotations
@@ -34,7 +37,18 @@ def _parser() -> argparse.ArgumentParser:
     run.add_argument("file", help="netlist file (.mna)")
     run.add_argument("--out", metavar="DIR", help="output folder (default: results/<file name>)")
     run.add_argument("--no-plot", action="store_true", help="skip the PNG plot")
-    run.add_argument("--quiet", "-q", action="store_true", help="print only errors and failed checks")
+    run.add_argument("--quiet", "-q", action="store_true",
+                     help="no progress, no tables: print only errors and failed checks")
+    check = sub.add_parser(
+        "check", help="run every circuit file given (folders: every *.mna inside) and summarise the checks",
+        description="Run circuit files in parallel and report their checks. Exit status: 0 every check "
+        "passed, 1 a check failed, 2 an input error, 3 a simulation failed (the highest over all files).")
+    check.add_argument("paths", nargs="+", metavar="FILE|DIR", help="circuit files or folders")
+    check.add_argument("--junit", metavar="REPORT.xml", help="also write a JUnit XML report")
+    check.add_argument("--jobs", "-j", type=int, metavar="N",
+                       help="worker processes (default: one per CPU core; 1 runs in this process)")
+    check.add_argument("--quiet", "-q", action="store_true",
+                       help="no progress and no line per passing file")
     sub.add_parser("kinds", help="list element kinds and their arguments")
     return p
 
@@ -47,6 +61,8 @@ def main(argv: Sequence[str] | None = None) -> int:
     try:
         if args.command == "run":
             return cmd_run(args)
+        if args.command == "check":
+            return cmd_check(args)
         if args.command == "kinds":
             return cmd_kinds()
     except KeyboardInterrupt:
@@ -72,85 +88,141 @@ def _error_exit(exc: BaseException) -> int:
 
 def cmd_run(args) -> int:
     from . import load
-    from .errors import MnaError, SimulationError
-    from .report import plot_waveforms, summary, write_json
-    from .results import OperatingPoint, Waveforms
+    from .console import RunProgress, check_lines, is_terminal, measurement_lines, wants_colour
+    from .errors import InputError, MnaError
+    from .measure import run_and_check
+    from .report import summary, write_json
 
     path = Path(args.file)
     out_dir = Path(args.out) if args.out else Path("results") / path.stem
     say = (lambda *a: None) if args.quiet else print
+    progress = RunProgress(sys.stdout) if is_terminal(sys.stdout) and not args.quiet else None
     try:
         circuit = load(path)
         if not circuit.analyses:
-            from .errors import InputError
-
             raise InputError(f"{path}: no 'simulate' line: nothing to run",
                              hint="add 'simulate dc' or 'simulate transient until=10 ms'")
-        results = []
-        failure: SimulationError | None = None
-        for request in circuit.analyses:
-            try:
-                results.extend(_run_one(circuit, request))
-            except SimulationError as exc:
-                failure = exc
-                if isinstance(exc.partial, Waveforms):
-                    results.append(exc.partial)
-                break
+        try:
+            outcome = run_and_check(circuit, progress)
+        finally:
+            if progress is not None:
+                progress.clear()
     except MnaError as exc:
         return _error_exit(exc)
     except Exception as exc:  # noqa: BLE001 - last line of defence: no traceback for users
         return _error_exit(exc)
 
-    title = circuit.title or circuit.name
     say(f"circuit {circuit.name}" + (f": {circuit.title}" if circuit.title else ""))
     for w in circuit.warnings:
         print(f"warning: {w}", file=sys.stderr)
-    outputs: dict[str, str] = {}
-    transient_count = sum(isinstance(r, Waveforms) for r in results)
-    k = 0
     try:
-        for request, result in zip(circuit.analyses, results):
-            if isinstance(result, OperatingPoint):
-                say("  dc operating point:")
-                for label, value in list(result.values.items())[:12]:
-                    say(f"    {label:<16} {_fmt(value, result.units.get(label, ''))}")
-                if len(result.values) > 12:
-                    say(f"    ... {len(result.values) - 12} more in summary.json")
-            elif isinstance(result, Waveforms):
-                k += 1
-                suffix = "" if transient_count == 1 else f"-{k}"
-                csv_path = result.to_csv(out_dir / f"waveforms{suffix}.csv")
-                outputs[f"csv{suffix}"] = str(csv_path)
-                if not args.no_plot and result.time.size > 1:
-                    png = plot_waveforms(out_dir / f"waveforms{suffix}.png", result, title)
-                    outputs[f"png{suffix}"] = str(png)
-                st = result.statistics
-                reached = float(result.time[-1]) if result.time.size else 0.0  # a run may fail at t = 0
-                say(f"  transient to {_fmt(reached, 's')}: {st['steps']} steps, "
-                    f"{st['factorizations']} factorisation{'s' if st['factorizations'] != 1 else ''}, "
-                    f"{st['wall_time_s']:.3g} s")
-        extra = None
-        if failure is not None:
-            extra = {"status": "failed", "failure": {"message": failure.message, "time_s": failure.time,
-                                                     "unknowns": list(failure.unknowns)}}
-        data = summary(circuit, results, outputs, extra)
+        outputs = _write_results(circuit, outcome.results, out_dir, args, say)
+        extra = outcome.report.to_json()
+        if outcome.failure is not None:
+            failure = outcome.failure
+            extra.update({"status": "failed", "failure": {"message": failure.message, "time_s": failure.time,
+                                                          "unknowns": list(failure.unknowns)}})
+        data = summary(circuit, outcome.results, outputs, extra=extra)
         write_json(out_dir / "summary.json", data)
         outputs["json"] = str(out_dir / "summary.json")
     except OSError as exc:
         print(f"error: cannot write results to {out_dir}: {exc}", file=sys.stderr)
         return EXIT_INPUT
+    if outcome.failure is None:
+        for line in measurement_lines(outcome.report):
+            say(line)
+        for line in check_lines(outcome.report, colour=wants_colour(sys.stdout), failures_only=args.quiet):
+            print(line)
     say(f"  results in {out_dir}/: " + ", ".join(Path(p).name for p in outputs.values()))
-    if failure is not None:
-        return _error_exit(failure)
-    return EXIT_OK
+    if outcome.failure is not None:
+        return _error_exit(outcome.failure)
+    return outcome.exit_code
 
 
-def _run_one(circuit, request):
-    from .analyses.transient import transient
+def _write_results(circuit, results: list, out_dir: Path, args, say) -> dict[str, str]:
+    """CSV and PNG of each transient run (the record list only), and the console lines."""
+    from .report import plot_waveforms
+    from .results import OperatingPoint, Waveforms
 
-    if request.analysis == "dc":
-        return [circuit.dc()]
-    return [transient(circuit, dict(request.settings), None)]
+    outputs: dict[str, str] = {}
+    transient_count = sum(isinstance(r, Waveforms) for r in results)
+    k = 0
+    for result in results:
+        if isinstance(result, OperatingPoint):
+            say("  dc operating point:")
+            for label, value in list(result.values.items())[:12]:
+                say(f"    {label:<16} {_fmt(value, result.units.get(label, ''))}")
+            if len(result.values) > 12:
+                say(f"    ... {len(result.values) - 12} more in summary.json")
+        elif isinstance(result, Waveforms):
+            k += 1
+            suffix = "" if transient_count == 1 else f"-{k}"
+            recorded = _recorded(circuit, result)
+            csv_path = recorded.to_csv(out_dir / f"waveforms{suffix}.csv")
+            outputs[f"csv{suffix}"] = str(csv_path)
+            if not args.no_plot and result.time.size > 1:
+                png = plot_waveforms(out_dir / f"waveforms{suffix}.png", recorded, circuit.title or circuit.name)
+                outputs[f"png{suffix}"] = str(png)
+            st = result.statistics
+            reached = float(result.time[-1]) if result.time.size else 0.0  # a run may fail at t = 0
+            say(f"  transient to {_fmt(reached, 's')}: {st['steps']} steps, "
+                f"{st['factorizations']} factorisation{'s' if st['factorizations'] != 1 else ''}, "
+                f"{st['wall_time_s']:.3g} s")
+    return outputs
+
+
+def _recorded(circuit, waves):
+    """The waveforms the CSV and plot show: what ``record`` names (or the default set),
+    without the extra signals kept only for measurements."""
+    from dataclasses import replace
+
+    from .analyses.common import default_signals
+
+    keep = [r.label for r in (circuit.records or default_signals(circuit)) if r.label in waves]
+    return replace(waves, signals={k: waves.signals[k] for k in keep},
+                   units={k: waves.units[k] for k in keep})
+
+
+def cmd_check(args) -> int:
+    import time
+
+    from .batch import check_files, default_jobs, exit_code, find_circuits, junit_xml
+    from .console import BatchProgress, batch_summary, file_details, is_terminal, wants_colour
+    from .errors import InputError
+    from .results import write_atomic
+
+    started = time.perf_counter()
+    try:
+        paths = find_circuits(args.paths)
+        jobs = min(args.jobs if args.jobs is not None else default_jobs(), len(paths))
+        if jobs < 1:
+            raise InputError(f"--jobs needs at least 1 worker process, got {args.jobs}")
+    except InputError as exc:
+        return _error_exit(exc)
+    colour = wants_colour(sys.stdout)
+    display = BatchProgress(sys.stdout, len(paths), max(len(str(p)) for p in paths),
+                            live=is_terminal(sys.stdout) and not args.quiet, colour=colour, quiet=args.quiet)
+    try:
+        results = check_files(paths, jobs, on_result=display.file_done, on_wait=display.tick)
+    finally:
+        display.finish()
+    seconds = time.perf_counter() - started
+    troubled = [r for r in results if r.status != "ok"]
+    if troubled:
+        print()
+    for result in troubled:
+        for line in file_details(result, colour=colour):
+            print(line)
+    for line in batch_summary(results, seconds, jobs):
+        print(line)
+    code = exit_code(results)
+    if args.junit:
+        try:
+            write_atomic(args.junit, junit_xml(results, seconds))
+        except OSError as exc:
+            print(f"error: cannot write the JUnit report {args.junit}: {exc}", file=sys.stderr)
+            code = max(code, EXIT_INPUT)
+    return code
 
 
 def _fmt(value: float, unit: str) -> str:
@@ -163,6 +235,7 @@ def _fmt(value: float, unit: str) -> str:
 
 
 def cmd_kinds() -> int:
+    from .circuit import ANGULAR_TEXT
     from .elements.registry import element_kinds
     from .units import describe
 
@@ -180,7 +253,10 @@ def cmd_kinds() -> int:
             print(f"    {cls.summary}")
         for arg in cls.arguments:
             unit = describe(arg.dimension) if arg.dimension is not None else ", ".join(arg.choices) or "see docs"
-            default = "required" if arg.required else f"default {arg.default!r}"
+            if arg.angular:
+                unit = ANGULAR_TEXT
+            default = ("required" if arg.required else "optional" if arg.default is None
+                       else f"default {arg.default!r}")
             print(f"    {arg.name}=  {unit}; {default}")
     return EXIT_OK
 

@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import math
 from fractions import Fraction
-from typing import Callable, Mapping
+from typing import Callable, Mapping, Optional
 
 from .errors import InputError, Span, UnitsError, UnknownNameError
 from .netlist import BinaryOp, Call, Compare, Expr, Name, Negate, Number, Pair, String, Word
@@ -81,10 +81,20 @@ FUNCTIONS: dict[str, Callable[[list[Quantity], Span], Quantity]] = {
 }
 
 
-def evaluate(expr: Expr, params: Mapping[str, Quantity]) -> Quantity:
+#: ``handler(call, evaluate_argument) -> Quantity | None``: a hook for calls
+#: this module does not know (measurements such as ``max(v(out))``). It is
+#: asked first for every call; ``None`` means "not mine", and the call is
+#: then evaluated as one of :data:`FUNCTIONS`. ``evaluate_argument``
+#: evaluates a sub-expression under the same names and the same hook.
+CallHandler = Callable[[Call, Callable[[Expr], Quantity]], Optional[Quantity]]
+
+
+def evaluate(expr: Expr, params: Mapping[str, Quantity], call_handler: CallHandler | None = None) -> Quantity:
     """Evaluate a parameter expression to a :class:`~mna.units.Quantity`.
 
-    ``params`` maps ``let`` names to their values. Raises
+    ``params`` maps names (``let`` parameters, and for ``measure``/``check``
+    lines the measurements above) to their values. ``call_handler`` (see
+    :data:`CallHandler`) evaluates calls this module does not know. Raises
     :class:`~mna.errors.InputError` subclasses with the expression's span.
     """
     if isinstance(expr, Number):
@@ -99,9 +109,13 @@ def evaluate(expr: Expr, params: Mapping[str, Quantity]) -> Quantity:
         close = difflib.get_close_matches(expr.name, list(params) + list(CONSTANTS), n=1)
         hint = f"did you mean {close[0]!r}?" if close else "define it with a 'let' line above this one"
         raise UnknownNameError(f"unknown parameter {expr.name!r}", expr.span, hint=hint)
+
+    def sub(e: Expr) -> Quantity:
+        return evaluate(e, params, call_handler)
+
     if isinstance(expr, BinaryOp):
-        left = evaluate(expr.left, params)
-        right = evaluate(expr.right, params)
+        left = sub(expr.left)
+        right = sub(expr.right)
         try:
             if expr.op == "+":
                 return left + right
@@ -128,8 +142,12 @@ def evaluate(expr: Expr, params: Mapping[str, Quantity]) -> Quantity:
         except (OverflowError, ZeroDivisionError, ValueError) as exc:
             raise InputError(f"cannot compute {expr.op}: {exc}", expr.span) from None
     if isinstance(expr, Negate):
-        return -evaluate(expr.operand, params)
+        return -sub(expr.operand)
     if isinstance(expr, Call):
+        if call_handler is not None:
+            handled = call_handler(expr, sub)
+            if handled is not None:
+                return handled
         fn = FUNCTIONS.get(expr.func)
         if fn is None:
             raise UnknownNameError(
@@ -139,7 +157,7 @@ def evaluate(expr: Expr, params: Mapping[str, Quantity]) -> Quantity:
             )
         if expr.named:
             raise InputError(f"{expr.func}() takes no named arguments", expr.named[0][2])
-        args = [evaluate(a, params) for a in expr.args]
+        args = [sub(a) for a in expr.args]
         return fn(args, expr.span)
     if isinstance(expr, (Word, String, Pair, Compare)):
         raise InputError("expected a number or quantity here", expr.span)

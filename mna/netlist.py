@@ -184,14 +184,22 @@ class RecordStatement:
 
 @dataclass(slots=True)
 class MeasureStatement:
+    """``measure NAME = EXPR``; ``text`` is ``NAME = EXPR`` as written, blanks tidied."""
+
     name: str
     value: Expr
     span: Span
+    text: str = ""
 
 
 @dataclass(slots=True)
 class CheckStatement:
-    """``check LEFT OP RIGHT`` or ``check LEFT within TOLERANCE of TARGET``."""
+    """``check LEFT OP RIGHT`` or ``check LEFT within TOLERANCE of TARGET``.
+
+    ``text`` is the statement as written after the word ``check``, with
+    comments dropped and runs of blanks (continuation lines too) made one
+    space: the check's name in reports.
+    """
 
     op: str  # < <= > >= or "within"
     left: Expr
@@ -286,6 +294,7 @@ class _Builder(Transformer):
     def __init__(self, chunk: _Chunk, file: str | None, lines: list[str]):
         super().__init__()
         self._first = chunk.first_line
+        self._text = chunk.text
         self._file = file
         self._lines = lines
 
@@ -395,15 +404,16 @@ class _Builder(Transformer):
 
     def measure_stmt(self, children):
         name, value = children
-        return MeasureStatement(str(name), value, self.span(name))
+        return MeasureStatement(str(name), value, self.span(name), text=statement_text(self._text, "measure"))
 
     def check_compare(self, children):
         left, op, right = children
-        return CheckStatement(str(op), left, right, span_of(left))
+        return CheckStatement(str(op), left, right, span_of(left), text=statement_text(self._text, "check"))
 
     def check_within(self, children):
         left, tolerance, target = children
-        return CheckStatement("within", left, target, span_of(left), tolerance=tolerance)
+        return CheckStatement("within", left, target, span_of(left), tolerance=tolerance,
+                              text=statement_text(self._text, "check"))
 
 
 class _Comma:
@@ -411,6 +421,18 @@ class _Comma:
 
 
 _COMMA = _Comma()
+
+
+def statement_text(text: str, keyword: str) -> str:
+    """A statement's text after its leading ``keyword``, comments dropped, blanks tidied.
+
+    ``"check max(v(sw))  <  60 V   # clamp"`` -> ``"max(v(sw)) < 60 V"``.
+    (Only for statements without quoted text, where ``#`` always starts a comment.)
+    """
+    words = " ".join(line.split("#", 1)[0] for line in text.splitlines()).split()
+    if words and words[0] == keyword:
+        words = words[1:]
+    return " ".join(words)
 
 
 def span_of(thing) -> Span:
@@ -432,12 +454,12 @@ def make_number(text: str, span: Span) -> Number:
 # --------------------------------------------------------------------------
 # Fast path for ``KIND NAME a -> b [VALUE] [key=VALUE ...]`` on one line.
 
+# As the grammar's QUANTITY: a unit is never followed by "=" (or a letter...),
+# so in ``turns=10 field=1 T`` the ``10`` has no unit ``field``.
 _Q = (
     r"[-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?"
     r"(?:[ \t]*[A-Za-z\u00b5\u03bc\u03a9%]+(?:\^-?\d+)?"
     r"(?:[*/][A-Za-z\u00b5\u03bc\u03a9%]+(?:\^-?\d+)?)*"
-    # As in the grammar's QUANTITY: a unit is never followed by "=" (that
-    # word is the next argument's name, as in `ideality=1.8 resistance=...`).
     r"(?![\w=(\u00b5\u03bc\u03a9%^*/]))?"
 )
 _FAST = re.compile(

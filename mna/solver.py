@@ -42,6 +42,7 @@ class Factorizer:
         self.solves = 0
         self._last_data: np.ndarray | None = None
         self._last_lu = None
+        self._A = None
 
     def factor(self, data: np.ndarray, key=None):
         """LU of the matrix with CSC ``data``. ``key`` identifies data for reuse."""
@@ -52,13 +53,16 @@ class Factorizer:
                 return lu
         elif self._last_data is not None and np.array_equal(data, self._last_data):
             return self._last_lu
-        A = self.system.matrix(data)
+        # One CSC matrix object is reused: only its values change, so its
+        # structure is not validated again for every factorisation.
+        if self._A is None:
+            self._A = self.system.matrix(data.copy())
+        A = self._A
+        A.data = data
         try:
             lu = spla.splu(A, permc_spec="COLAMD", options={"SymmetricMode": False})
         except RuntimeError:
             raise SingularMatrix(singular_unknowns(self.system, A)) from None
-        if not np.all(np.isfinite(lu.U.diagonal())) or np.any(lu.U.diagonal() == 0):
-            raise SingularMatrix(singular_unknowns(self.system, A))
         self.factorizations += 1
         if key is not None:
             self._cache[key] = lu
@@ -142,12 +146,16 @@ def newton(
     extra_diag: np.ndarray | None = None,
     source_scale: float = 1.0,
     damping: bool = False,
+    hold: tuple[np.ndarray, np.ndarray] | None = None,
 ) -> NewtonResult:
     """Solve ``alpha*q(x) + history + f(x, t) = 0`` from the guess ``x0``.
 
     ``extra_diag`` adds conductances to the diagonal (a DC leak, a gmin
     step); ``source_scale`` multiplies every independent source (source
-    stepping). Raises :class:`SingularMatrix`.
+    stepping); ``hold`` = (rows, values) replaces those rows by
+    ``x[row] = value`` (the DC hold, see
+    :meth:`mna.system.Stamper.hold_at_dc`). Raises
+    :class:`SingularMatrix`.
 
     Safeguards, in the order they act on each iteration:
 
@@ -175,10 +183,13 @@ def newton(
     if system.is_piecewise_linear:
         f0, q0, jf, jq = system.affine_parts(t)
         data = system.matrix_data(alpha, jf, jq, extra_diag)
-        lu = factorizer.factor(data)
         rhs = s - history if history is not None else s
         if f0 is not None:
             rhs = rhs - f0 - (alpha * q0 if alpha else 0.0)
+        if hold is not None:
+            system.hold_matrix(data, hold[0])
+            rhs[hold[0]] = hold[1]
+        lu = factorizer.factor(data)
         factorizer.solves += 1
         return NewtonResult(lu.solve(rhs), 1, True)
 
@@ -192,7 +203,11 @@ def newton(
             residual += history
         if extra_diag is not None:
             residual += extra_diag * x
-        return residual, system.matrix_data(alpha, jf, jq, extra_diag), f_nl, q_nl
+        data = system.matrix_data(alpha, jf, jq, extra_diag)
+        if hold is not None:
+            system.hold_matrix(data, hold[0])
+            residual[hold[0]] = x[hold[0]] - hold[1]
+        return residual, data, f_nl, q_nl
 
     def balanced(x: np.ndarray, residual: np.ndarray, f_nl: np.ndarray, q_nl: np.ndarray) -> bool:
         """Every equation holds to RESIDUAL_RELTOL of the terms that make it up."""
@@ -205,6 +220,8 @@ def newton(
             terms += np.abs(history)
         if extra_diag is not None:
             terms += np.abs(extra_diag * x)
+        if hold is not None:
+            terms[hold[0]] = np.abs(x[hold[0]]) + np.abs(hold[1])
         return bool(np.all(np.abs(residual) <= RESIDUAL_RELTOL * terms + RESIDUAL_FLOOR))
 
     x = np.array(x0, dtype=float)

@@ -75,6 +75,7 @@ class Stamper:
         self.sources: list[tuple[int, float, Waveform]] = []
         self.states: list[dict[int, float]] = []
         self.q_initial = np.zeros(self.n)
+        self.dc_holds: dict[int, float] = {}
         self.current: Element | None = None
 
     # -- indices ---------------------------------------------------------------
@@ -138,6 +139,17 @@ class Stamper:
         if row >= 0:
             self.q_initial[row] += value
 
+    def hold_at_dc(self, index: int, value: float) -> None:
+        """At the DC operating point, replace row ``index`` by ``x[index] = value``.
+
+        For a state whose rate equation has no steady state of its own, such
+        as a coil generator's angle (``d angle/dt = w``): the operating point
+        freezes it at its initial value instead of leaving it undetermined.
+        Transient steps keep the row's own equation.
+        """
+        if index >= 0:
+            self.dc_holds[index] = float(value)
+
 
 @dataclass
 class BatchSlot:
@@ -172,6 +184,9 @@ class System:
     abstol: np.ndarray
     diag_pos: np.ndarray
     elements_by_name: dict[str, Element] = field(default_factory=dict)
+    dc_hold_rows: np.ndarray = field(default_factory=lambda: np.empty(0, dtype=np.int64))
+    dc_hold_values: np.ndarray = field(default_factory=lambda: np.empty(0))
+    dc_hold_mask: np.ndarray | None = None  # CSC data entries in the held rows
 
     @property
     def n(self) -> int:
@@ -237,6 +252,18 @@ class System:
             data[self.diag_pos] += extra_diag
         return data
 
+    @property
+    def dc_hold(self) -> tuple[np.ndarray, np.ndarray] | None:
+        """Rows held at the DC operating point and their values, or None."""
+        if not self.dc_hold_rows.size:
+            return None
+        return self.dc_hold_rows, self.dc_hold_values
+
+    def hold_matrix(self, data: np.ndarray, rows: np.ndarray) -> None:
+        """Make the held ``rows`` of the matrix with CSC ``data`` identity rows (in place)."""
+        data[self.dc_hold_mask] = 0.0
+        data[self.diag_pos[rows]] = 1.0
+
     def matrix(self, data: np.ndarray) -> sp.csc_matrix:
         return sp.csc_matrix((data, self.indices, self.indptr), shape=(self.n, self.n))
 
@@ -260,7 +287,7 @@ class System:
     def charges(self, x: np.ndarray, t: float = 0.0) -> np.ndarray:
         """q(x): linear charges plus any nonlinear ones."""
         q = self.C @ x
-        if self.batches:
+        if any(slot.batch.q_rows.size for slot in self.batches):
             q += self.evaluate_batches(x, t)[1]
         return q
 
@@ -269,6 +296,11 @@ class System:
         pts = [e.corners(start, stop) for e in self.circuit.elements.values()]
         pts += [slot.batch.corners(start, stop) for slot in self.batches]
         pts = [p for p in pts if len(p)]
+        return np.unique(np.concatenate(pts)) if pts else np.empty(0)
+
+    def jumps(self, start: float, stop: float) -> np.ndarray:
+        """Corners in (start, stop] where a source value jumps, sorted (s)."""
+        pts = [p for p in (e.jumps(start, stop) for e in self.circuit.elements.values()) if len(p)]
         return np.unique(np.concatenate(pts)) if pts else np.empty(0)
 
     def describe_unknowns(self, indices) -> tuple[str, ...]:
@@ -358,6 +390,8 @@ def compile_circuit(circuit: "Circuit") -> System:
             st_v.append(v)
     Cs = sp.csr_matrix((st_v, (st_r, st_c)), shape=(n_states, n))
     abstol = np.array([ABSTOL.get(d, DEFAULT_ABSTOL) for d in s.dims])
+    hold_rows = np.array(sorted(s.dc_holds), dtype=np.int64)
+    hold_values = np.array([s.dc_holds[r] for r in hold_rows.tolist()], dtype=float)
     return System(
         circuit=circuit,
         names=s.names,
@@ -381,6 +415,9 @@ def compile_circuit(circuit: "Circuit") -> System:
         abstol=abstol,
         diag_pos=diag_pos,
         elements_by_name=dict(circuit.elements),
+        dc_hold_rows=hold_rows,
+        dc_hold_values=hold_values,
+        dc_hold_mask=np.isin(indices, hold_rows) if hold_rows.size else None,
     )
 
 

@@ -2,7 +2,8 @@
 
 - Every node must connect, through some element, to the reference of its
   domain (``gnd`` or ``frame``): an island is an error.
-- Voltage sources (and speed sources) must not form a loop: an error.
+- Voltage sources (and speed sources and gears, which fix shaft speeds)
+  must not form a loop: an error.
 - A node group joined to the rest only through current sources, load
   torques and inductors, at least one of which forces its flow (a current
   source in series with an inductor, two current sources in series, a
@@ -85,11 +86,12 @@ def check_topology(circuit: "Circuit") -> TopologyReport:
         domain = circuit.nodes[group[0]]
         ref = REFERENCE.get(domain, "gnd")
         listed = ", ".join(repr(n) for n in sorted(group)[:6]) + (" ..." if len(group) > 6 else "")
+        through = "an inertia, friction, a speed source..." if domain == "shaft" else "a resistor, a source..."
         raise TopologyError(
             f"node{'s' if len(group) > 1 else ''} {listed} {'have' if len(group) > 1 else 'has'} "
             f"no connection to {ref!r}: the circuit is in separate pieces",
             circuit.node_spans.get(group[0]),
-            hint=f"connect the group to {ref} through some element (a resistor, a source...)",
+            hint=f"connect the group to {ref} through some element ({through})",
         )
 
     # 2. Loops of voltage sources.
@@ -101,6 +103,13 @@ def check_topology(circuit: "Circuit") -> TopologyReport:
         if not vsets.union(br.a, br.b):
             path = _path(vforest, br.a, br.b)
             names = [element.name] + [e.name for e in path]
+            if circuit.nodes.get(br.a) == "shaft":
+                raise TopologyError(
+                    f"{' and '.join(sorted(set(names)))} form a loop of speed constraints (speed sources, "
+                    "gears): they fix the same shaft speed twice and the torques are undefined",
+                    element.span,
+                    hint="remove one speed source, or couple the shafts through friction instead",
+                )
             raise TopologyError(
                 f"{' and '.join(sorted(set(names)))} form a loop of voltage sources: "
                 "their voltages fight and the currents are undefined",

@@ -56,6 +56,10 @@ class Waveform:
         """Times in (start, stop] where the slope changes (s)."""
         return np.empty(0)
 
+    def jumps(self, start: float, stop: float) -> np.ndarray:
+        """The corners in (start, stop] where the value itself jumps (ideal edges)."""
+        return np.empty(0)
+
 
 #: Stands for 1/edge time when an edge is ideal (zero time): any positive
 #: time past the edge saturates the ramp, and the value at the edge's own
@@ -138,6 +142,11 @@ class Step(Waveform):
         pts = np.array([self.at, self.at + self.rise])
         return np.unique(pts[(pts > start) & (pts <= stop)])
 
+    def jumps(self, start, stop):
+        if self.rise == 0 and start < self.at <= stop and self.start_level != self.end_level:
+            return np.array([self.at])
+        return np.empty(0)
+
 
 @dataclass(frozen=True)
 class Pulse(Waveform):
@@ -184,16 +193,25 @@ class Pulse(Waveform):
         return low + span * np.where(t < delay, 0.0, frac)
 
     def corners(self, start, stop):
-        if stop <= self.delay:
+        on = self.duty * self.period
+        return self._edges(start, stop, [0.0, self.rise, on, on + self.fall])
+
+    def jumps(self, start, stop):
+        if self.high == self.low:
+            return np.empty(0)
+        offsets = ([0.0] if self.rise == 0 and self.duty > 0 else []) + (
+            [self.duty * self.period] if self.fall == 0 and 0 < self.duty < 1 else [])
+        return self._edges(start, stop, offsets)
+
+    def _edges(self, start, stop, offsets) -> np.ndarray:
+        """delay + k*period + offset for every period overlapping (start, stop]."""
+        if stop <= self.delay or not len(offsets):
             return np.empty(0)
         first = max(0, math.floor((start - self.delay) / self.period))
         last = math.ceil((stop - self.delay) / self.period)
         k = np.arange(first, last + 1, dtype=float)[:, None]
-        on = self.duty * self.period
-        offsets = np.array([0.0, self.rise, on, on + self.fall])
-        pts = (self.delay + k * self.period + offsets).ravel()
-        pts = np.unique(pts[(pts > start) & (pts <= stop)])
-        return pts
+        pts = (self.delay + k * self.period + np.asarray(offsets, dtype=float)).ravel()
+        return np.unique(pts[(pts > start) & (pts <= stop)])
 
 
 @dataclass(frozen=True)

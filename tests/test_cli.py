@@ -36,7 +36,7 @@ def test_run_writes_csv_json_png(tmp_netlist, tmp_path, capsys):
     with open(out_dir / "waveforms.csv", newline="") as fh:
         rows = list(csv.reader(fh))
     assert rows[0] == ["time", "v(x)", "i(L1)"]
-    assert len(rows) == 1 + 501
+    assert len(rows) == 1 + 501 + 1  # the ideal step at 1 ms is recorded on both sides
     # final current of the RL step, Ohm's law at t >> L/R: close to 10/5 = 2 A
     # (4 ms after the step = 2 time constants: 2*(1 - e^-2) = 1.729 A).
     assert float(rows[-1][2]) == pytest.approx(2 * (1 - 2.718281828 ** -2), rel=2e-3)

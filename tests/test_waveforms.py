@@ -66,3 +66,17 @@ def test_pwm_rl_steady_state_average_and_ripple():
     assert mean == pytest.approx(D * V / R, rel=1e-3)
     ripple = (V / R) * (1 - math.exp(-D * T / tau)) * (1 - math.exp(-(1 - D) * T / tau)) / (1 - math.exp(-T / tau))
     assert np.ptp(i) == pytest.approx(ripple, rel=1e-3)
+
+
+def test_ideal_edges_are_recorded_on_both_sides():
+    # A zero-rise step: the results hold the value just before and just after
+    # the edge at the same time, so a measurement over the waveform (the mean
+    # of an ideal PWM is duty*high exactly) needs no interpolation across it.
+    res = mna.parse("voltage-source V1 a -> gnd step(from=0 V, to=5 V, at=1 ms)\n"
+                    "resistor R1 a -> gnd 1 ohm\n").transient(until=2e-3, step=0.1e-3)
+    at_edge = np.flatnonzero(res.time == 1e-3)
+    assert at_edge.size == 2
+    assert res["v(a)"][at_edge].tolist() == [0.0, 5.0]
+    pwm = mna.parse("voltage-source V1 a -> gnd pwm(high=12 V, frequency=20 kHz, duty=40 %)\n"
+                    "resistor R1 a -> gnd 1 ohm\n").transient(until=0.5e-3, step=1e-6)
+    assert np.trapezoid(pwm["v(a)"], pwm.time) / 0.5e-3 == pytest.approx(0.4 * 12, rel=1e-12)

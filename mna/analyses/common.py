@@ -93,7 +93,7 @@ def unit_label(ref: SignalRef) -> str:
         return "rad/s"
     if ref.quantity == "angle":
         return "rad"
-    if ref.quantity == "torque":
+    if ref.quantity in ("torque", "torque_out"):
         return "N*m"
     if ref.dimension == DIMENSIONLESS:
         return ""

@@ -3,12 +3,14 @@
 d/dt = 0: inductors are shorts (their winding resistance remains),
 capacitors are open, inertias carry no torque, sources take their t = 0
 values. Nodes with no DC path get a tiny leak (see :mod:`mna.topology`).
+States with no steady state of their own (a coil generator's angle) are
+held at their initial values (:meth:`mna.system.Stamper.hold_at_dc`).
 """
 
 from __future__ import annotations
 
 import time as _time
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Sequence
 
 import numpy as np
 
@@ -19,7 +21,7 @@ from ..system import Probe, System
 from .common import compute_signal, dc_leak, default_signals, prepare, unit_label
 
 if TYPE_CHECKING:  # pragma: no cover
-    from ..circuit import Circuit
+    from ..circuit import Circuit, SignalRef
 
 
 #: gmin stepping: the conductance (S) from every node to the reference starts
@@ -88,7 +90,7 @@ def _solve_point(system: System, factorizer: Factorizer, leak: np.ndarray | None
     for method, damping in (("newton", False), ("damped newton", True)):
         try:
             result = newton(system, factorizer, x0, t, 0.0, None, extra_diag=leak, max_iterations=100,
-                            damping=damping)
+                            damping=damping, hold=system.dc_hold)
         except SingularMatrix as exc:
             if system.is_linear:
                 _raise_dc_singular(exc, t)
@@ -142,7 +144,7 @@ def _node_diag(system: System, value: float, leak: np.ndarray | None) -> np.ndar
 def _attempt(system, factorizer, x, t, leak_diag, scale=1.0):
     try:
         return newton(system, factorizer, x, t, 0.0, None, extra_diag=leak_diag, max_iterations=100,
-                      source_scale=scale, damping=True)
+                      source_scale=scale, damping=True, hold=system.dc_hold)
     except SingularMatrix:
         return None
 
@@ -210,8 +212,11 @@ def source_stepping(system: System, factorizer: Factorizer, leak: np.ndarray | N
     raise LadderFailed(total)
 
 
-def operating_point(circuit: "Circuit") -> OperatingPoint:
-    """Solve the operating point and report every node, current and shaft speed."""
+def operating_point(circuit: "Circuit", signals: Sequence["SignalRef"] = ()) -> OperatingPoint:
+    """Solve the operating point and report every node, current and shaft speed.
+
+    ``signals`` adds quantities beyond those (``p(R1)`` for a check, say).
+    """
     started = _time.perf_counter()
     system, report = prepare(circuit)
     factorizer = Factorizer(system)
@@ -221,6 +226,7 @@ def operating_point(circuit: "Circuit") -> OperatingPoint:
                   rates={k: np.zeros(1) for k in range(system.Cs.shape[0])})
     labels = {r.label: r for r in default_signals(circuit)}
     labels.update({r.label: r for r in circuit.records})
+    labels.update({r.label: r for r in signals})
     values = {label: float(compute_signal(ref, circuit, probe)[0]) + 0.0 for label, ref in labels.items()}
     return OperatingPoint(
         values=values,

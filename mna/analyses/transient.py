@@ -12,16 +12,18 @@ against ``tolerance`` relative to the largest magnitude each charge or flux
 has reached so far, plus an absolute floor from ``voltage-tolerance`` and
 ``current-tolerance``. A step whose error is too large is rejected and
 retried smaller; the next step grows by at most a factor of 2 and never
-beyond ``max-step``. Step sizes are rounded down to a ladder of quarter
-powers of two, so the few distinct matrices that result are factored once
-each and reused from a cache.
+beyond ``max-step``; it grows only when the error allows at least 1.5x.
+Step sizes are rounded down to a ladder of half powers of two, so the few
+distinct matrices that result are factored once each and reused from a
+cache.
 
 **Corners and events**: every corner (waveform kink, PWM edge, schedule
 time) is landed on exactly. At a corner, and whenever a switched element
-changes state, the integration history is cut: the next step is a
-first-order (backward Euler) step, so the trapezoidal rule does not ring on
-the edge. A state change also records a second sample at the same time,
-solved just after the change (the switch voltage at 0+).
+changes state, the integration history is cut: the next steps are
+first-order (backward Euler) steps, so the trapezoidal rule does not ring on
+the edge. A state change, and an ideal source edge (zero rise or fall
+time), also record a second sample at the same time, solved just after it
+(the switch voltage at 0+), so the waveforms hold both sides of the jump.
 
 **Failure**: a step whose Newton iteration does not converge is retried at
 a quarter of its length, down to ``min-step``; then the run stops with a
@@ -66,7 +68,8 @@ RETRY_FACTOR = 0.25
 RESTART_FRACTION = 0.01  # first step after a corner or event, relative to the step before
 MAX_GROWTH = 2.0
 SAFETY = 0.85
-LADDER = 4  # step sizes are rounded down to 2**(k/LADDER) * until
+LADDER = 2  # step sizes are rounded down to 2**(k/LADDER) * until
+GROWTH_THRESHOLD = 1.5  # a step grows only if the error allows at least this factor
 
 
 def time_grid(until: float, step: float, corners: np.ndarray) -> np.ndarray:
@@ -213,7 +216,10 @@ class _Run:
                     rhs -= alpha * q0
             self.factorizer.solves += 1
             self.stats["newton_iterations"] += 1
-            return lu.solve(rhs)
+            x = lu.solve(rhs)
+            if not np.isfinite(x).all():  # a numerically singular matrix
+                raise SingularMatrix(("(the circuit equations are numerically singular at this step)",))
+            return x
         res = newton(system, self.factorizer, x_guess, t, alpha, history)
         self.stats["newton_iterations"] += res.iterations
         self._worst = res.worst
@@ -266,7 +272,7 @@ class _Run:
     def jump(self, x: np.ndarray, t: float, h0: float, q: np.ndarray) -> np.ndarray:
         """Values just after t: a tiny backward-Euler step from the charges q."""
         try:
-            x_new = self.solve(x, t, 1.0 / h0, -q / h0)
+            x_new = self.solve(x, t + h0, 1.0 / h0, -q / h0)  # sources just after t
         except SingularMatrix as exc:
             raise_singular(exc, time=t, step=h0, what=f"solving the instant after t = {t:.6g} s")
         if x_new is None:
@@ -285,6 +291,8 @@ class _Run:
         fixed = cfg.step is not None
         grid = time_grid(until, cfg.step, corners) if fixed else None
         grid_corner = _corner_flags(grid, corners) if fixed else None
+        jumps = system.jumps(0.0, until)
+        jumps = jumps[(jumps > 0) & (jumps < until)]
         grid_k = 1
 
         x = self.initial_point()
@@ -397,7 +405,14 @@ class _Run:
                                 time=t, step=h,
                             )
                         continue
-                    h_next = h_try * min(MAX_GROWTH, factor)
+                    # Grow only when it pays (each new step length costs a
+                    # factorisation); shrink as soon as the error asks for it.
+                    if factor >= GROWTH_THRESHOLD:
+                        h_next = h_try * min(MAX_GROWTH, factor)
+                    elif factor >= 1.0:
+                        h_next = h_try
+                    else:
+                        h_next = h_try * factor
                 else:
                     h_next = h_try * MAX_GROWTH if len(hist_t) > 1 else h_try * 1.5
             # -- accept
@@ -428,7 +443,8 @@ class _Run:
                 grid_k += 1
             # -- corners and events cut the history
             restart = landing and (not fixed or grid_corner[grid_k - 1])
-            if self.event_batches and self.update_events(t, x):
+            jumped = restart and jumps.size and _contains(jumps, t)
+            if jumped or (self.event_batches and self.update_events(t, x)):
                 x = self.jump(x, t, max(h_try, cfg.min_step) * JUMP_FRACTION, q)
                 q_jump = self.charges(x, t)
                 if Cs is not None:
@@ -478,12 +494,20 @@ class _Run:
 
 
 def _divided_difference(ts: list[float], qs: list[np.ndarray]) -> np.ndarray:
-    """The highest divided difference through the given points (vector-valued)."""
-    table = list(qs)
+    """The highest divided difference through the given points (vector-valued).
+
+    Written as its explicit weights, sum_i q_i / prod_{j != i} (t_i - t_j),
+    so it costs one small matrix-vector product.
+    """
     n = len(ts)
-    for level in range(1, n):
-        table = [(table[i + 1] - table[i]) / (ts[i + level] - ts[i]) for i in range(n - level)]
-    return table[0]
+    weights = np.empty(n)
+    for i in range(n):
+        d = 1.0
+        for j in range(n):
+            if j != i:
+                d *= ts[i] - ts[j]
+        weights[i] = 1.0 / d
+    return weights @ np.asarray(qs)
 
 
 def _snap(h: float, step: float) -> float:
@@ -495,6 +519,11 @@ def _ladder(h: float, until: float) -> float:
     """Round a step down to the ladder 2**(k/LADDER) * until (few distinct matrices)."""
     k = math.floor(LADDER * math.log2(h / until) + 1e-9)
     return until * 2.0 ** (k / LADDER)
+
+
+def _contains(sorted_times: np.ndarray, t: float) -> bool:
+    i = np.searchsorted(sorted_times, t)
+    return bool(i < sorted_times.size and sorted_times[i] == t)
 
 
 def _corner_flags(grid: np.ndarray, corners: np.ndarray) -> np.ndarray:

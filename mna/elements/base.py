@@ -84,6 +84,10 @@ class Arg:
     - ``"choice"``: one word of ``choices``;
     - ``"expr"``: the raw expression, interpreted by the element itself
       (a switch gate, for instance).
+
+    ``angular=True`` marks an angular speed (dimension 1/s): a value
+    written in hertz is refused as ambiguous (cycles or radians per
+    second?) and the user is asked for rad/s or rpm.
     """
 
     name: str
@@ -94,6 +98,7 @@ class Arg:
     positive: bool = False
     nonnegative: bool = False
     doc: str = ""
+    angular: bool = False
 
     @property
     def required(self) -> bool:
@@ -205,6 +210,11 @@ class Element:
         """Add this element's constant contributions. Called once per compile."""
 
     def corners(self, start: float, stop: float) -> np.ndarray:
+        return np.empty(0)
+
+    def jumps(self, start: float, stop: float) -> np.ndarray:
+        """The corners where a source value jumps (ideal edges): the solver
+        records the values just before and just after each one."""
         return np.empty(0)
 
     # -- results -------------------------------------------------------------

@@ -43,6 +43,9 @@ class VoltageSource(TwoTerminal):
     def corners(self, start, stop):
         return self.waveform.corners(start, stop)
 
+    def jumps(self, start, stop):
+        return self.waveform.jumps(start, stop)
+
     def across(self, probe):
         return self.waveform.values(probe.time)
 
@@ -73,6 +76,9 @@ class CurrentSource(TwoTerminal):
 
     def corners(self, start, stop):
         return self.waveform.corners(start, stop)
+
+    def jumps(self, start, stop):
+        return self.waveform.jumps(start, stop)
 
     def current(self, probe):
         return np.asarray(self.waveform.values(probe.time), dtype=float)

@@ -1,0 +1,282 @@
+"""Checking many circuit files at once (``mna check``): find, run in parallel, report.
+
+- :func:`find_circuits` turns files and folders into a sorted list of
+  ``*.mna`` files (folders are searched recursively; hidden folders such
+  as ``.git`` or ``.venv`` are skipped).
+- :func:`check_file` runs one file's analyses, measurements and checks
+  and returns a :class:`FileResult` of plain data. It never raises: an
+  input error, a failed simulation or a bug in mna becomes the result's
+  status, so one broken file cannot stop the others.
+- :func:`check_files` runs many files, in worker processes when ``jobs``
+  is more than one, and reports each as it finishes.
+- :func:`junit_xml` writes the results as a JUnit XML report: one
+  ``testsuite`` per file, one ``testcase`` per check; a failed check is a
+  ``failure``, a check that could not be evaluated (input error, failed
+  simulation) an ``error``.
+"""
+
+from __future__ import annotations
+
+import os
+import time
+import traceback
+from concurrent.futures import FIRST_COMPLETED, Future, ProcessPoolExecutor, wait
+from concurrent.futures.process import BrokenProcessPool
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Callable, Iterable, Sequence
+from xml.etree import ElementTree as ET
+
+from .errors import InputError
+from .measure import CheckResult, MeasureResult
+
+#: File status -> exit status of ``mna check`` (the highest over all files wins).
+EXIT_CODES = {"ok": 0, "failed": 1, "input": 2, "simulation": 3, "internal": 4}
+
+#: File status -> how the report names it.
+STATUS_TEXT = {
+    "ok": "ok",
+    "failed": "check failed",
+    "input": "input error",
+    "simulation": "simulation failed",
+    "internal": "internal error",
+}
+
+
+@dataclass
+class FileResult:
+    """What checking one circuit file gave; plain data, so it crosses process boundaries.
+
+    ``status`` is ``ok`` (every check passed), ``failed`` (a check failed),
+    ``input`` (the file is wrong, or a check could not be evaluated on the
+    results), ``simulation`` (the solver failed) or ``internal`` (a bug in
+    mna). ``message`` says why for the last three.
+    """
+
+    path: str
+    status: str
+    seconds: float = 0.0
+    checks: list[CheckResult] = field(default_factory=list)
+    measurements: list[MeasureResult] = field(default_factory=list)
+    message: str = ""
+    warnings: list[str] = field(default_factory=list)
+
+    @property
+    def exit_code(self) -> int:
+        return EXIT_CODES[self.status]
+
+    def count(self, status: str) -> int:
+        """How many of the file's checks have ``status`` (pass, fail, error)."""
+        return sum(c.status == status for c in self.checks)
+
+
+# --------------------------------------------------------------------------
+# Finding files.
+
+
+def find_circuits(paths: Iterable[str | Path]) -> list[Path]:
+    """Circuit files named by ``paths``: files as given, folders searched for ``*.mna``.
+
+    Sorted, without repeats. Raises :class:`~mna.errors.InputError` for a
+    path that does not exist and when no circuit file is found at all.
+    """
+    found: dict[Path, None] = {}
+    for raw in paths:
+        path = Path(raw)
+        if path.is_dir():
+            for file in sorted(path.rglob("*.mna")):
+                if not any(part.startswith(".") for part in file.relative_to(path).parts[:-1]):
+                    found.setdefault(file, None)
+        elif path.is_file():
+            found.setdefault(path, None)
+        else:
+            raise InputError(f"{path}: no such file or folder")
+    if not found:
+        raise InputError("no circuit files (*.mna) found in " + ", ".join(str(p) for p in paths))
+    return sorted(found)
+
+
+# --------------------------------------------------------------------------
+# Checking one file.
+
+
+def check_file(path: str | Path) -> FileResult:
+    """Load, simulate and check one circuit file; never raises (see :class:`FileResult`)."""
+    from . import load
+    from .errors import MnaError
+    from .measure import run_and_check
+
+    started = time.perf_counter()
+    result = FileResult(str(path), "ok")
+    try:
+        circuit = load(path)
+        if not circuit.analyses:
+            raise InputError(f"{path}: no 'simulate' line: nothing to run",
+                             hint="add 'simulate dc' or 'simulate transient until=10 ms'")
+        outcome = run_and_check(circuit)
+        result.checks = outcome.report.checks
+        result.measurements = outcome.report.measurements
+        result.warnings = list(circuit.warnings)
+        if outcome.failure is not None:
+            result.status, result.message = "simulation", _simulation_message(outcome.failure)
+        else:
+            result.status = {0: "ok", 1: "failed", 2: "input"}[outcome.report.exit_code]
+    except InputError as exc:
+        result.status, result.message = "input", str(exc)
+    except MnaError as exc:
+        result.status, result.message = "simulation", _simulation_message(exc)
+    except Exception as exc:  # noqa: BLE001 - reported as an internal error, the other files go on
+        result.status = "internal"
+        result.message = (f"internal error in mna (please report it with the netlist): "
+                          f"{type(exc).__name__}: {exc}\n{traceback.format_exc(limit=8)}")
+    result.seconds = time.perf_counter() - started
+    return result
+
+
+def _simulation_message(exc: BaseException) -> str:
+    where = getattr(exc, "time", None)
+    return f"simulation failed{f' at t = {where:.6g} s' if where is not None else ''}: {exc}"
+
+
+# --------------------------------------------------------------------------
+# Checking many files.
+
+
+def default_jobs() -> int:
+    """Worker processes by default: one per CPU core."""
+    return os.cpu_count() or 1
+
+
+def check_files(paths: Sequence[Path], jobs: int | None = None,
+                on_result: Callable[[FileResult], None] | None = None,
+                on_wait: Callable[[], None] | None = None, wait_seconds: float = 0.2) -> list[FileResult]:
+    """Check every file; results in the order of ``paths``.
+
+    ``jobs`` worker processes (default: one per CPU core; 1 runs in this
+    process). ``on_result(result)`` is called as each file finishes, in the
+    order they finish; ``on_wait()`` every ``wait_seconds`` while waiting
+    (to refresh a progress display).
+    """
+    jobs = default_jobs() if jobs is None else jobs
+    if jobs < 1:
+        raise InputError(f"--jobs needs at least 1 worker, got {jobs}")
+    done: dict[Path, FileResult] = {}
+
+    def finished(path: Path, result: FileResult) -> None:
+        done[path] = result
+        if on_result is not None:
+            on_result(result)
+
+    if jobs == 1 or len(paths) == 1:
+        for path in paths:
+            finished(path, check_file(path))
+    else:
+        _in_workers(paths, min(jobs, len(paths)), finished, on_wait, wait_seconds)
+    return [done[p] for p in paths]
+
+
+def _in_workers(paths: Sequence[Path], workers: int, finished: Callable[[Path, FileResult], None],
+                on_wait: Callable[[], None] | None, wait_seconds: float) -> None:
+    # Workers started by fork inherit what is imported here: import the
+    # solver (scipy) once rather than once in every worker.
+    from .analyses import transient  # noqa: F401
+
+    with ProcessPoolExecutor(max_workers=workers) as pool:
+        pending: dict[Future, Path] = {pool.submit(check_file, p): p for p in paths}
+        try:
+            while pending:
+                ready, _ = wait(pending, timeout=wait_seconds, return_when=FIRST_COMPLETED)
+                for future in ready:
+                    path = pending.pop(future)
+                    finished(path, _collect(future, path))
+                if on_wait is not None and pending:
+                    on_wait()
+        except BaseException:
+            pool.shutdown(wait=False, cancel_futures=True)
+            raise
+
+
+def _collect(future: Future, path: Path) -> FileResult:
+    try:
+        return future.result()
+    except BrokenProcessPool as exc:
+        return FileResult(str(path), "internal", message=f"the worker process checking this file died: {exc}")
+
+
+def exit_code(results: Iterable[FileResult]) -> int:
+    """The highest exit status over the files (0 when every check passed)."""
+    return max((r.exit_code for r in results), default=0)
+
+
+# --------------------------------------------------------------------------
+# JUnit XML.
+
+
+def _classname(path: str) -> str:
+    """``circuits/relay_snubber.mna`` -> ``circuits.relay_snubber``."""
+    stem = Path(path).with_suffix("")
+    return ".".join(part for part in stem.parts if part not in ("/", "..", "."))
+
+
+def _check_case(result: FileResult, check: CheckResult) -> ET.Element:
+    case = ET.Element("testcase", classname=_classname(result.path), name=check.text,
+                      file=result.path, line=str(check.line))
+    if check.status == "fail":
+        if check.shown_value == "none":
+            message = f"no value: {check.message}"
+        else:
+            message = f"measured {check.shown_value}, limit {check.shown_limit}"
+        failure = ET.SubElement(case, "failure", message=message, type="check failed")
+        failure.text = "\n".join(line for line in (
+            f"check {check.text}  ({result.path}:{check.line})",
+            f"measured: {check.shown_value}",
+            f"limit:    {check.shown_limit}",
+            f"margin:   {check.shown_margin}" if check.shown_margin else "",
+            check.message,
+        ) if line)
+    elif check.status == "error":
+        kind = "simulation failed" if result.status == "simulation" else "input error"
+        error = ET.SubElement(case, "error", message=check.message.splitlines()[0] if check.message else kind,
+                              type=kind)
+        error.text = check.message
+    return case
+
+
+def _file_case(result: FileResult) -> ET.Element:
+    """The one testcase of a file that failed before its checks could be listed."""
+    case = ET.Element("testcase", classname=_classname(result.path), name="load and run", file=result.path)
+    error = ET.SubElement(case, "error", message=result.message.splitlines()[0] if result.message else "",
+                          type=STATUS_TEXT[result.status])
+    error.text = result.message
+    return case
+
+
+def _suite(result: FileResult) -> ET.Element:
+    cases = [_check_case(result, c) for c in result.checks]
+    if result.status in ("input", "simulation", "internal") and not any(c.status == "error" for c in result.checks):
+        cases.append(_file_case(result))
+    failures = sum(case.find("failure") is not None for case in cases)
+    errors = sum(case.find("error") is not None for case in cases)
+    suite = ET.Element("testsuite", name=result.path, tests=str(len(cases)), failures=str(failures),
+                       errors=str(errors), skipped="0", time=f"{result.seconds:.3f}")
+    if result.measurements:
+        properties = ET.SubElement(suite, "properties")
+        for m in result.measurements:
+            value = m.shown if m.status == "ok" else f"{m.status}: {m.message.splitlines()[0] if m.message else ''}"
+            ET.SubElement(properties, "property", name=f"measure {m.name}", value=value)
+    suite.extend(cases)
+    if result.warnings:
+        ET.SubElement(suite, "system-out").text = "\n".join(f"warning: {w}" for w in result.warnings)
+    return suite
+
+
+def junit_xml(results: Sequence[FileResult], seconds: float, name: str = "mna check") -> bytes:
+    """A JUnit XML report (UTF-8 bytes) of the files' checks."""
+    root = ET.Element("testsuites", name=name)
+    suites = [_suite(r) for r in results]
+    for key in ("tests", "failures", "errors"):
+        root.set(key, str(sum(int(s.get(key)) for s in suites)))
+    root.set("time", f"{seconds:.3f}")
+    root.extend(suites)
+    ET.indent(root)
+    return ET.tostring(root, encoding="utf-8", xml_declaration=True) + b"\n"
