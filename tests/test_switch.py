@@ -308,3 +308,19 @@ def test_chattering_comparison_gate_fails_with_exit_status_3(tmp_path, capsys):
     with pytest.raises(mna.SimulationError, match="Q1 changes state at each") as info:
         mna.parse(text).transient(until=1e-3, step=1e-6, start="rest")
     assert info.value.partial is not None and info.value.partial.time.size > 50
+
+
+def test_gates_from_python():
+    # The embedding API takes a gate as text, like the netlist.
+    c = mna.Circuit("api")
+    c.add("voltage-source", "V1", "a", "gnd", 5)
+    c.add("resistor", "R1", "a", "b", "1 kohm")
+    c.add("switch", "Q1", "b", "gnd", gate="schedule(closed, 1 ms: open)", on="1 ohm")
+    c.add("switch", "Q2", "a", "c", gate="v(b) > 2.5 V", hysteresis="0.1 V")
+    c.add("resistor", "R2", "c", "gnd", "1 kohm")
+    res = c.transient(until=2e-3, step=1e-4)
+    # Q1 closed: v(b) = 5 V * 1/(1000 + 1) (divider); open: 5 V * 10M/(10M + 1k).
+    assert res.at("v(b)", 0.5e-3) == pytest.approx(5 / 1001, rel=1e-6)
+    assert res["v(b)"][-1] == pytest.approx(5 * 10e6 / (10e6 + 1e3), rel=1e-6)
+    # Q2 follows v(b): open while Q1 holds b low, closed after.
+    assert res.at("i(R2)", 0.5e-3) < 1e-6 and res["i(R2)"][-1] == pytest.approx(5 / (1e3 + 10e-3), rel=1e-6)
