@@ -703,7 +703,7 @@ def _python_value(arg: Arg, value: Any, what: str) -> Any:
         return value
     if arg.kind == "expr":
         if isinstance(value, str):
-            st = nl.parse_netlist(f"let _x = {value}").statements[0]
+            st = nl.parse_netlist(f"let x = {value}").statements[0]  # (names start with a letter)
             return st.value
         return value
     if isinstance(value, str):

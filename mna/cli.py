@@ -164,7 +164,8 @@ def _write_results(circuit, results: list, out_dir: Path, args, say) -> dict[str
                 png = plot_waveforms(out_dir / f"waveforms{suffix}.png", recorded, circuit.title or circuit.name)
                 outputs[f"png{suffix}"] = str(png)
             st = result.statistics
-            say(f"  transient to {_fmt(float(result.time[-1]), 's')}: {st['steps']} steps, "
+            reached = float(result.time[-1]) if result.time.size else 0.0  # a run may fail at t = 0
+            say(f"  transient to {_fmt(reached, 's')}: {st['steps']} steps, "
                 f"{st['factorizations']} factorisation{'s' if st['factorizations'] != 1 else ''}, "
                 f"{st['wall_time_s']:.3g} s")
     return outputs

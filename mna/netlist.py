@@ -380,7 +380,8 @@ class _Builder(Transformer):
     # -- statements
     def element(self, children):
         kind, name, *rest = children
-        operands = tuple(c for c in rest if not isinstance(c, Argument))
+        # Commas between operands (``a -> b, c -> d``) only separate: drop them.
+        operands = tuple(c for c in rest if not isinstance(c, (Argument, _Comma)))
         args = tuple(c for c in rest if isinstance(c, Argument))
         return ElementStatement(
             str(kind), str(name), operands, args, self.span(kind), self.span(kind), self.span(name)

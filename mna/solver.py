@@ -101,10 +101,36 @@ def singular_unknowns(system: System, A) -> tuple[str, ...]:
 
 @dataclass
 class NewtonResult:
+    """Outcome of :func:`newton`: the last iterate and how it got there.
+
+    ``worst`` names the unknowns that moved most (relative to their
+    tolerance) in the last iteration when the solve did not converge.
+    """
+
     x: np.ndarray
     iterations: int
     converged: bool
     worst: tuple[str, ...] = ()
+
+
+#: Largest number of step halvings per iteration when ``damping`` is on.
+MAX_HALVINGS = 8
+#: After this many iterations an iterate also counts as converged when every
+#: equation balances to RESIDUAL_RELTOL of the magnitudes of its terms (for
+#: steps so short, such as the instant after an event, that round-off in the
+#: solve exceeds the step tolerance).
+STALL_AFTER = 3
+RESIDUAL_RELTOL = 1e-12
+RESIDUAL_FLOOR = 1e-30
+
+
+def _abs_matrices(system: System):
+    """|G| and |C| of a system (cached on it): the scales of each equation's terms."""
+    cached = system.__dict__.get("_abs_matrices")
+    if cached is None:
+        cached = (abs(system.G).tocsr(), abs(system.C).tocsr())
+        system.__dict__["_abs_matrices"] = cached
+    return cached
 
 
 def newton(
@@ -119,6 +145,7 @@ def newton(
     reltol: float = 1e-6,
     extra_diag: np.ndarray | None = None,
     source_scale: float = 1.0,
+    damping: bool = False,
     hold: tuple[np.ndarray, np.ndarray] | None = None,
 ) -> NewtonResult:
     """Solve ``alpha*q(x) + history + f(x, t) = 0`` from the guess ``x0``.
@@ -129,6 +156,26 @@ def newton(
     ``x[row] = value`` (the DC hold, see
     :meth:`mna.system.Stamper.hold_at_dc`). Raises
     :class:`SingularMatrix`.
+
+    Safeguards, in the order they act on each iteration:
+
+    1. Junction limiting: every batch's ``limit(x_new, x_old)`` may shorten
+       the update (a diode's logarithmic limit). An iteration whose step was
+       limited never counts as converged.
+    2. Damping (``damping=True``): if the residual's 2-norm (SI units) grows,
+       the step is halved, up to :data:`MAX_HALVINGS` times; a halved step
+       never counts as converged. The trial point's evaluation is reused
+       for the next iteration, so an accepted full step costs nothing extra.
+    3. Convergence: every unknown moved less than ``reltol*|x| + abstol``
+       (abstol per dimension: 1 uV, 1 pA, see :data:`mna.system.ABSTOL`);
+       or, after :data:`STALL_AFTER` iterations, every equation balances to
+       :data:`RESIDUAL_RELTOL` of the magnitudes of its terms. The second
+       test matters only when round-off in the solve is larger than the
+       step tolerance: very short steps (the instant after an event), where
+       ``alpha*L`` reaches 1e12 and more.
+
+    The matrix is refactored only when its values changed: a batch whose
+    Jacobian is constant between events (a switch) reuses one LU.
     """
     s = system.add_sources(np.zeros(system.n), t)
     if source_scale != 1.0:
@@ -145,8 +192,9 @@ def newton(
         lu = factorizer.factor(data)
         factorizer.solves += 1
         return NewtonResult(lu.solve(rhs), 1, True)
-    x = x0.copy()
-    for iteration in range(1, max_iterations + 1):
+
+    def linearise(x: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+        """Residual, CSC matrix data, and the nonlinear f and q at ``x``."""
         f_nl, q_nl, jf, jq = system.evaluate_batches(x, t)
         residual = system.G @ x + f_nl - s
         if alpha:
@@ -159,19 +207,58 @@ def newton(
         if hold is not None:
             system.hold_matrix(data, hold[0])
             residual[hold[0]] = x[hold[0]] - hold[1]
+        return residual, data, f_nl, q_nl
+
+    def balanced(x: np.ndarray, residual: np.ndarray, f_nl: np.ndarray, q_nl: np.ndarray) -> bool:
+        """Every equation holds to RESIDUAL_RELTOL of the terms that make it up."""
+        abs_g, abs_c = _abs_matrices(system)
+        ax = np.abs(x)
+        terms = abs_g @ ax + np.abs(f_nl) + np.abs(s)
+        if alpha:
+            terms += alpha * (abs_c @ ax + np.abs(q_nl))
+        if history is not None:
+            terms += np.abs(history)
+        if extra_diag is not None:
+            terms += np.abs(extra_diag * x)
+        if hold is not None:
+            terms[hold[0]] = np.abs(x[hold[0]]) + np.abs(hold[1])
+        return bool(np.all(np.abs(residual) <= RESIDUAL_RELTOL * terms + RESIDUAL_FLOOR))
+
+    x = np.array(x0, dtype=float)
+    residual, data, f_nl, q_nl = linearise(x)
+    step = scale = np.ones(system.n)
+    limited = damped = False
+    for iteration in range(1, max_iterations + 1):
+        if iteration > STALL_AFTER and not limited and not damped and balanced(x, residual, f_nl, q_nl):
+            # The update is stuck at round-off while every equation holds to
+            # 1e-12 of its terms: nothing more can be gained in floating point.
+            return NewtonResult(x, iteration - 1, True)
         lu = factorizer.factor(data)
         dx = lu.solve(-residual)
         factorizer.solves += 1
         if not np.all(np.isfinite(dx)):
             return NewtonResult(x, iteration, False, ())
-        x_new = x + dx
+        full = x + dx
+        x_new = full
         for slot in system.batches:
             x_new = slot.batch.limit(x_new, x)
+        limited = x_new is not full and not np.array_equal(x_new, full)
+        damped = False
+        if damping:
+            trial = linearise(x_new)
+            norm = np.linalg.norm(residual)
+            halvings = 0
+            while np.linalg.norm(trial[0]) > norm and halvings < MAX_HALVINGS:
+                x_new = x + 0.5 * (x_new - x)
+                trial = linearise(x_new)
+                halvings += 1
+            damped = halvings > 0
         step = np.abs(x_new - x)
         scale = reltol * np.maximum(np.abs(x_new), np.abs(x)) + system.abstol
         x = x_new
-        if np.all(step <= scale):
+        if not limited and not damped and np.all(step <= scale):
             return NewtonResult(x, iteration, True)
+        residual, data, f_nl, q_nl = trial if damping else linearise(x)
     worst = np.argsort(-(step / scale))[:4]
     return NewtonResult(x, max_iterations, False, system.describe_unknowns(worst))
 

@@ -33,6 +33,12 @@ BUILTIN = {
     "load": "mna.elements.mechanical:Load",
     "speed-source": "mna.elements.mechanical:SpeedSource",
     "gear": "mna.elements.mechanical:Gear",
+    "diode": "mna.elements.semiconductors:Diode",
+    "coupling": "mna.elements.magnetics:Coupling",
+    "transformer": "mna.elements.magnetics:Transformer",
+    "choke": "mna.elements.magnetics:Choke",
+    "solenoid": "mna.elements.magnetics:Solenoid",
+    "switch": "mna.elements.switches:Switch",
 }
 
 _extra: dict[str, type[Element]] = {}

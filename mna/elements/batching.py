@@ -1,0 +1,83 @@
+"""Helpers for nonlinear batches: index patterns with reference nodes dropped.
+
+Every batch in this package fills the :class:`~mna.elements.base.NonlinearBatch`
+index arrays with the same few shapes: a branch current ``i(v)`` between two
+nodes (a diode junction, a switch), whose residual goes ``+i`` into row
+``a`` and ``-i`` into row ``b`` and whose Jacobian is the 2x2 conductance
+block. A reference node has index -1; its rows and columns are dropped here,
+once, at construction, so evaluating a batch is a few numpy calls with no
+Python loop over instances.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+
+def node_values(x: np.ndarray, index: np.ndarray) -> np.ndarray:
+    """``x[index]`` with 0 where ``index`` is -1 (a reference node)."""
+    return np.where(index >= 0, x[np.maximum(index, 0)], 0.0)
+
+
+class NodeSelector:
+    """``x[index]`` with 0 at reference nodes (-1), precomputed for speed.
+
+    Called several times per Newton iteration, so it avoids ``np.where``:
+    index -1 picks ``x[-1]``, which a 0/1 mask then zeroes.
+    """
+
+    def __init__(self, index: np.ndarray):
+        self.index = np.asarray(index, dtype=np.int64)
+        self.all_valid = bool(np.all(self.index >= 0))
+        self.none_valid = bool(np.all(self.index < 0))
+        self.mask = (self.index >= 0).astype(float)
+
+    def __call__(self, x: np.ndarray) -> np.ndarray:
+        if self.all_valid:
+            return x[self.index]
+        if self.none_valid:
+            return np.zeros(self.index.size)
+        return x[self.index] * self.mask
+
+
+class BranchPattern:
+    """Residual rows and Jacobian pattern of branch currents ``i(v_a - v_b)``.
+
+    ``a`` and ``b`` are integer arrays of node indices (-1 for a reference
+    node), one entry per instance. ``f_values(i)`` and ``jf_values(g)`` turn
+    per-instance currents (A) and conductances (S) into the value arrays the
+    engine expects for ``f_rows`` and ``(jf_rows, jf_cols)``.
+    """
+
+    def __init__(self, a: np.ndarray, b: np.ndarray):
+        self.a = np.asarray(a, dtype=np.int64)
+        self.b = np.asarray(b, dtype=np.int64)
+        self._va, self._vb = NodeSelector(self.a), NodeSelector(self.b)
+        m = self.a.size
+        inst = np.arange(m)
+        # Residual: +i at row a, -i at row b, reference rows dropped.
+        rows = np.concatenate([self.a, self.b])
+        keep = rows >= 0
+        self.f_rows = rows[keep]
+        self._f_pick = np.concatenate([inst, inst])[keep]
+        self._f_sign = np.concatenate([np.ones(m), -np.ones(m)])[keep]
+        # Jacobian: the block [[g, -g], [-g, g]] on (a, b) x (a, b).
+        jr = np.concatenate([self.a, self.a, self.b, self.b])
+        jc = np.concatenate([self.a, self.b, self.a, self.b])
+        keep = (jr >= 0) & (jc >= 0)
+        self.jf_rows = jr[keep]
+        self.jf_cols = jc[keep]
+        self._j_pick = np.concatenate([inst, inst, inst, inst])[keep]
+        self._j_sign = np.concatenate([np.ones(m), -np.ones(m), -np.ones(m), np.ones(m)])[keep]
+
+    def across(self, x: np.ndarray) -> np.ndarray:
+        """``v_a - v_b`` per instance."""
+        return self._va(x) - self._vb(x)
+
+    def f_values(self, current: np.ndarray) -> np.ndarray:
+        """Residual values: ``+i`` at row a, ``-i`` at row b."""
+        return current[self._f_pick] * self._f_sign
+
+    def jf_values(self, conductance: np.ndarray) -> np.ndarray:
+        """Jacobian values of the 2x2 block ``[[g, -g], [-g, g]]``."""
+        return conductance[self._j_pick] * self._j_sign

@@ -1,0 +1,563 @@
+"""Gated switches: the ``switch`` kind and its gates.
+
+Netlist::
+
+    switch Q1 d -> s  on=50 mohm  off=10 Mohm  gate=schedule(closed, 2 ms: open, 5 ms: closed)
+    switch Q2 d -> s  gate=pwm(frequency=100 kHz, duty=40 %, delay=0 s)
+    switch Q3 d -> s  gate=v(g) > 2.5 V  hysteresis=0.2 V
+    switch Q4 d -> s  gate=i(L1) < 1 A   hysteresis=100 mA
+
+A switch is a resistance ``on=`` when closed and ``off=`` when open
+(defaults 10 mohm and 10 Mohm): ``i = v / R(state)``. Between state
+changes it is linear, so its batch is piecewise linear and the transient
+engine reuses one LU factorisation until the next change.
+
+Gates:
+
+``schedule(STATE, TIME: STATE, ...)``
+    The first state holds from t = 0; each ``TIME: STATE`` changes it at
+    that time (times positive and increasing; they may be ``let`` names).
+    States are ``closed``/``open`` (also ``on``/``off``).
+``pwm(frequency=, duty=, delay=)``
+    Closed during the first ``duty`` of each period, starting at ``delay``
+    (open before it). ``delay`` defaults to 0 s.
+``QUANTITY > LEVEL`` or ``QUANTITY < LEVEL``
+    Closed while the comparison holds. QUANTITY is ``v(node)``,
+    ``v(a, b)`` or ``i(E)`` of an element whose current is an unknown of the
+    circuit (inductor, choke, voltage source; for any other element compare
+    the voltage across a sense resistor). ``hysteresis=H`` (same unit) makes a
+    band centred on LEVEL: with ``>`` the switch closes when the quantity
+    rises above LEVEL + H/2 and opens when it falls below LEVEL - H/2
+    (mirrored for ``<``). ``<=`` and ``>=`` mean the same as ``<`` and ``>``.
+
+Schedule and PWM edges are corners: the solver lands on each exactly and
+the state changes there. A comparison's crossing is located between two
+time points by linear interpolation (``event_time``) and the solver steps
+onto it. At a state change the engine records two samples at the same
+time: the one before the change and the one just after (the switch
+voltage at 0+).
+
+The operating point takes schedule and PWM gates at t = 0; a comparison
+gate starts open and then takes the state its comparison gives at the
+operating point (inside a hysteresis band it stays open).
+
+Results: ``v i p`` as any two-terminal element, and ``state`` (1 closed,
+0 open). The switch's state history is kept on its batch during a run and
+read back by :meth:`Switch.output` (the engine may instead pass it as
+``Probe.events[name] = (times, states)``).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from .. import netlist as nl
+from ..errors import InputError, SimulationError, UnitsError, UnknownNameError
+from ..expressions import evaluate
+from ..units import AMPERE, DIMENSIONLESS, HERTZ, OHM, SECOND, VOLT, WATT, Dimension, describe
+from .base import CONDUCTOR, Arg, Branch, NonlinearBatch
+from .batching import BranchPattern, NodeSelector
+from .passive import TwoTerminal
+
+STATE_WORDS = {"closed": True, "on": True, "open": False, "off": False}
+
+#: A comparison-gated switch that changes state at this many consecutive
+#: time points is chattering: the run stops with a SimulationError.
+MAX_CHATTER = 100
+
+# --------------------------------------------------------------------------
+# Gate specifications: parsed from the netlist expression at elaboration,
+# turned into numbers at compile time (when ``let`` values are known).
+
+
+@dataclass
+class ScheduleSpec:
+    first: bool
+    points: list[tuple[nl.Expr, bool]]
+    span: Any = None
+
+
+@dataclass
+class PwmSpec:
+    named: dict[str, nl.Expr]
+    span: Any = None
+
+
+@dataclass
+class CompareSpec:
+    quantity: str  # "v" or "i"
+    names: tuple[str, ...]
+    sign: float  # +1: closed while quantity > level; -1: while quantity < level
+    level: nl.Expr
+    span: Any = None
+    name_spans: tuple = field(default_factory=tuple)
+
+
+GATE_HELP = ("a gate is schedule(closed, 2 ms: open, ...), pwm(frequency=.., duty=.., delay=..) "
+             "or a comparison such as v(g) > 2.5 V or i(L1) < 1 A")
+
+
+def _state_word(expr: nl.Expr) -> bool:
+    word = expr.name if isinstance(expr, nl.Name) else expr.word if isinstance(expr, nl.Word) else None
+    if word not in STATE_WORDS:
+        raise InputError("a schedule state is closed or open (also on or off)", getattr(expr, "span", None))
+    return STATE_WORDS[word]
+
+
+def parse_gate(expr: nl.Expr) -> ScheduleSpec | PwmSpec | CompareSpec:
+    """Check a gate expression's shape; numbers are evaluated later by :func:`realise_gate`."""
+    span = getattr(expr, "span", None)
+    if isinstance(expr, nl.Call) and expr.func == "schedule":
+        if expr.named or not expr.args:
+            raise InputError("schedule() lists a first state then TIME: STATE changes, like "
+                             "schedule(closed, 2 ms: open)", span)
+        first, *rest = expr.args
+        if isinstance(first, nl.Pair):
+            raise InputError("schedule() starts with the state at t = 0 (closed or open), then "
+                             "TIME: STATE changes", first.span)
+        points = []
+        for item in rest:
+            if not isinstance(item, nl.Pair):
+                raise InputError("after the first state, each schedule() entry is TIME: STATE, like 2 ms: open",
+                                 getattr(item, "span", None))
+            points.append((item.key, _state_word(item.value)))
+        return ScheduleSpec(_state_word(first), points, span)
+    if isinstance(expr, nl.Call) and expr.func == "pwm":
+        if expr.args:
+            raise InputError("a pwm() gate takes named arguments only: pwm(frequency=.., duty=.., delay=..)",
+                             expr.args[0].span)
+        named: dict[str, nl.Expr] = {}
+        for key, value, key_span in expr.named:
+            if key not in ("frequency", "duty", "delay"):
+                raise UnknownNameError(f"a pwm() gate has no argument {key!r}", key_span,
+                                       hint="it takes frequency=, duty= and delay= (the switch is closed "
+                                            "during the duty part of each period)")
+            if key in named:
+                raise InputError(f"{key}= is given twice", key_span)
+            named[key] = value
+        for key in ("frequency", "duty"):
+            if key not in named:
+                raise InputError(f"a pwm() gate needs {key}=", span)
+        return PwmSpec(named, span)
+    if isinstance(expr, nl.Compare):
+        left, right, op = expr.left, expr.right, expr.op
+        if _is_signal(right) and not _is_signal(left):
+            left, right = right, left
+            op = {"<": ">", "<=": ">=", ">": "<", ">=": "<="}[op]
+        if not _is_signal(left):
+            raise InputError("a comparison gate compares a circuit quantity with a level: v(node), v(a, b) "
+                             "or i(ELEMENT), like v(g) > 2.5 V", span)
+        names = tuple(a.name for a in left.args)
+        if left.func == "i" and len(names) != 1:
+            raise InputError("i() in a gate takes one element name", left.span)
+        if left.func == "v" and len(names) not in (1, 2):
+            raise InputError("v() in a gate takes a node, or two nodes v(a, b)", left.span)
+        sign = 1.0 if op in (">", ">=") else -1.0
+        return CompareSpec(left.func, names, sign, right, span, tuple(a.span for a in left.args))
+    if isinstance(expr, nl.Call):
+        raise UnknownNameError(f"unknown gate {expr.func}()", span, hint=GATE_HELP)
+    raise InputError("this is not a gate", span, hint=GATE_HELP)
+
+
+def _is_signal(expr: nl.Expr) -> bool:
+    return (isinstance(expr, nl.Call) and expr.func in ("v", "i") and not expr.named and bool(expr.args)
+            and all(isinstance(a, nl.Name) for a in expr.args))
+
+
+def _quantity(expr: nl.Expr, params, want: Dimension, what: str) -> float:
+    q = evaluate(expr, params)
+    if q.dim != want:
+        raise UnitsError(f"{what} needs {describe(want)}, got {describe(q.dim)}", getattr(expr, "span", None))
+    return q.value
+
+
+# --------------------------------------------------------------------------
+# Realised gates: numbers and unknown indices.
+
+
+@dataclass
+class ScheduleGate:
+    """States by time: ``states[k]`` holds from ``times[k]`` (``times[0] = 0``)."""
+
+    times: np.ndarray
+    states: np.ndarray
+
+    def state_at(self, t: float) -> bool:
+        return bool(self.states[np.searchsorted(self.times, t, side="right") - 1])
+
+    def corners(self, start: float, stop: float) -> np.ndarray:
+        pts = self.times[1:]
+        return pts[(pts > start) & (pts <= stop)]
+
+
+@dataclass
+class PwmGate:
+    frequency: float
+    duty: float
+    delay: float
+
+    @property
+    def period(self) -> float:
+        return 1.0 / self.frequency
+
+    def state_at(self, t: float) -> bool:
+        return bool(pwm_states(np.array([t]), np.array([self.period]), np.array([self.duty]),
+                               np.array([self.delay]))[0])
+
+    def corners(self, start: float, stop: float) -> np.ndarray:
+        if not 0.0 < self.duty < 1.0 or stop <= self.delay:
+            pts = np.array([self.delay]) if self.duty > 0 and self.delay > 0 else np.empty(0)
+            return pts[(pts > start) & (pts <= stop)]
+        period = self.period
+        first = max(0, math.floor((start - self.delay) / period))
+        last = math.ceil((stop - self.delay) / period)
+        k = np.arange(first, last + 1, dtype=float)[:, None]
+        pts = (self.delay + k * period + np.array([0.0, self.duty * period])).ravel()
+        return np.unique(pts[(pts > start) & (pts <= stop)])
+
+
+def pwm_states(t: np.ndarray | float, period: np.ndarray, duty: np.ndarray, delay: np.ndarray) -> np.ndarray:
+    """Closed (True) during the first ``duty`` of each period after ``delay``, for many gates at once.
+
+    A time within 1e-9 of a period from an edge counts as past it, so the
+    state at an edge the solver landed on is the state after the edge.
+    """
+    eps = 1e-9
+    since = t - delay
+    cycles = np.floor(since / period + eps)
+    tau = since - cycles * period
+    return (since >= -eps * period) & (tau < duty * period - eps * period)
+
+
+@dataclass
+class CompareGate:
+    """Closed while ``sign*(signal - level) > 0``, with a band ``hysteresis`` wide."""
+
+    pos: int  # unknown index added (-1: none)
+    neg: int  # unknown index subtracted (-1: none)
+    sign: float
+    level: float
+    hysteresis: float
+    label: str
+
+
+def realise_gate(spec, params, stamper, switch: "Switch"):
+    """Numbers and unknown indices for a gate (at compile time)."""
+    if isinstance(spec, ScheduleSpec):
+        times, states = [0.0], [spec.first]
+        for expr, state in spec.points:
+            t = _quantity(expr, params, SECOND, f"schedule time of switch {switch.name}")
+            if not t > times[-1] or t <= 0:
+                raise InputError(f"switch {switch.name}: schedule() times must be positive and increase "
+                                 "from entry to entry", getattr(expr, "span", None))
+            times.append(t)
+            states.append(state)
+        return ScheduleGate(np.array(times), np.array(states, dtype=bool))
+    if isinstance(spec, PwmSpec):
+        f = _quantity(spec.named["frequency"], params, HERTZ, "pwm() frequency")
+        d = _quantity(spec.named["duty"], params, DIMENSIONLESS, "pwm() duty")
+        delay = _quantity(spec.named["delay"], params, SECOND, "pwm() delay") if "delay" in spec.named else 0.0
+        if not f > 0:
+            raise InputError("pwm() frequency= must be positive", spec.span)
+        if not 0.0 <= d <= 1.0:
+            raise InputError(f"pwm() duty= must lie between 0 % and 100 %, got {d * 100:g} %", spec.span)
+        if delay < 0:
+            raise InputError("pwm() delay= cannot be negative", spec.span)
+        return PwmGate(f, d, delay)
+    want = VOLT if spec.quantity == "v" else AMPERE
+    level = _quantity(spec.level, params, want, "the level of a comparison gate")
+    hysteresis = 0.0
+    h_expr = switch.params.get("hysteresis")
+    if h_expr is not None:
+        hysteresis = _quantity(h_expr, params, want, f"hysteresis of switch {switch.name} (its gate compares "
+                                                     f"{'a voltage' if want == VOLT else 'a current'})")
+        if hysteresis < 0:
+            raise InputError("hysteresis= cannot be negative", switch.span_of("hysteresis"))
+    pos, neg = _signal_indices(spec, stamper, switch)
+    label = f"{spec.quantity}({', '.join(spec.names)})"
+    return CompareGate(pos, neg, spec.sign, level, hysteresis, label)
+
+
+def _signal_indices(spec: CompareSpec, s, switch: "Switch") -> tuple[int, int]:
+    circuit = s.circuit
+    if spec.quantity == "v":
+        idx = []
+        for name, span in zip(spec.names, spec.name_spans):
+            if circuit.nodes.get(name) != "electrical":
+                raise UnknownNameError(f"switch {switch.name}: the gate names no electrical node {name!r}", span)
+            idx.append(s.node(name))
+        if len(idx) == 1:
+            idx.append(-1)
+        if idx[0] == idx[1]:
+            raise InputError(f"switch {switch.name}: the gate's voltage is always 0 V", spec.span)
+        return idx[0], idx[1]
+    (name,) = spec.names
+    span = spec.name_spans[0] if spec.name_spans else spec.span
+    element = circuit.elements.get(name)
+    if element is None:
+        raise UnknownNameError(f"switch {switch.name}: the gate names no element {name!r}", span)
+    index = s.own_index.get((name, "i"))
+    if index is None:
+        raise InputError(
+            f"switch {switch.name}: a gate can compare i() of an element whose current is an unknown of the "
+            f"circuit (inductor, choke, voltage source); {name} is a {element.keyword}",
+            span, hint="compare v(a, b) across a resistor instead, or put a sense element in series",
+        )
+    return index, -1
+
+
+# --------------------------------------------------------------------------
+# The element.
+
+
+class Switch(TwoTerminal):
+    """``switch Q1 a -> b on=50 mohm off=10 Mohm gate=...``: a gated resistance.
+
+    See the module docstring for the gates. ``i(Q1)`` flows from a to b;
+    ``state(Q1)`` is 1 when closed and 0 when open.
+    """
+
+    keyword = "switch"
+    arguments = (
+        Arg("on", OHM, default=10e-3, positive=True, doc="resistance when closed"),
+        Arg("off", OHM, default=10e6, positive=True, doc="resistance when open"),
+        Arg("gate", kind="expr", doc="schedule(...), pwm(...) or a comparison such as v(g) > 2.5 V"),
+        Arg("hysteresis", kind="expr", default=None,
+            doc="width of the band around a comparison gate's level (V or A)"),
+    )
+    outputs = {"v": VOLT, "i": AMPERE, "p": WATT, "state": DIMENSIONLESS}
+    summary = "switch with on/off resistance, gated by a schedule, a PWM or a comparison"
+
+    def validate(self):
+        p = self.params
+        if not p["on"] < p["off"]:
+            raise InputError(f"switch {self.name}: on= ({p['on']:g} ohm) must be below off= ({p['off']:g} ohm)",
+                             self.span_of("on"))
+        self.spec = parse_gate(p["gate"])
+        if p["hysteresis"] is not None and not isinstance(self.spec, CompareSpec):
+            raise InputError(f"switch {self.name}: hysteresis= applies only to a comparison gate",
+                             self.span_of("hysteresis"))
+        self.gate = None
+        self._batch = None
+
+    def branches(self):
+        return [Branch(self.nodes["a"], self.nodes["b"], CONDUCTOR)]
+
+    def stamp(self, s):
+        self._a, self._b = s.node(self.nodes["a"]), s.node(self.nodes["b"])
+        self.gate = realise_gate(self.spec, s.circuit.params, s, self)
+
+    def corners(self, start, stop):
+        if isinstance(self.gate, (ScheduleGate, PwmGate)):
+            return self.gate.corners(start, stop)
+        return np.empty(0)
+
+    # -- results ---------------------------------------------------------------------
+    def states(self, probe) -> np.ndarray:
+        """Closed (1.0) or open (0.0) at each recorded time."""
+        time = np.asarray(probe.time, dtype=float)
+        if self.name in probe.events:
+            log_t, log_s = (np.asarray(a) for a in probe.events[self.name])
+        elif self._batch is not None:
+            log_t, log_s = self._batch.history(self._column)
+        else:
+            return np.zeros_like(time)
+        if log_t.size == 0:
+            return np.zeros_like(time)
+        k = np.searchsorted(log_t, time, side="right") - 1
+        # The first of two samples at one time is the one before the change there.
+        first_of_pair = np.zeros(time.size, dtype=bool)
+        first_of_pair[:-1] = time[1:] == time[:-1]
+        before = np.searchsorted(log_t, time, side="left") - 1
+        k = np.where(first_of_pair, before, k)
+        return np.where(k >= 0, log_s[np.maximum(k, 0)], log_s[0]).astype(float)
+
+    def current(self, probe):
+        closed = self.states(probe)
+        g = np.where(closed > 0.5, 1.0 / self.params["on"], 1.0 / self.params["off"])
+        return g * self.across(probe)
+
+    def output(self, quantity, probe):
+        if quantity == "state":
+            return self.states(probe)
+        return super().output(quantity, probe)
+
+
+# --------------------------------------------------------------------------
+# The batch: every switch of a circuit.
+
+
+class SwitchBatch(NonlinearBatch):
+    """All switches: ``f = g(state)*(v_a - v_b)``, piecewise linear between events.
+
+    Time gates (schedules, PWM) and comparison gates are each evaluated
+    with a handful of numpy calls per accepted time point, whatever the
+    number of switches.
+    """
+
+    piecewise_linear = True
+
+    def __init__(self, elements, stamper):
+        super().__init__(elements, stamper)
+        for k, e in enumerate(elements):
+            e._batch, e._column = self, k
+        n = len(elements)
+        self.pattern = BranchPattern(np.array([e._a for e in elements]), np.array([e._b for e in elements]))
+        self.f_rows = self.pattern.f_rows
+        self.jf_rows, self.jf_cols = self.pattern.jf_rows, self.pattern.jf_cols
+        self.g_on = np.array([1.0 / e.params["on"] for e in elements])
+        self.g_off = np.array([1.0 / e.params["off"] for e in elements])
+        gates = [e.gate for e in elements]
+        # Schedules: one merged, time-sorted table of changes.
+        sched = [k for k, g in enumerate(gates) if isinstance(g, ScheduleGate)]
+        self.sched_idx = np.array(sched, dtype=np.int64)
+        self.sched_first = np.array([gates[k].states[0] for k in sched], dtype=bool)
+        rows = [(t, k, s) for k in sched for t, s in zip(gates[k].times[1:], gates[k].states[1:])]
+        rows.sort(key=lambda r: r[0])
+        self.change_t = np.array([r[0] for r in rows], dtype=float)
+        self.change_k = np.array([r[1] for r in rows], dtype=np.int64)
+        self.change_s = np.array([r[2] for r in rows], dtype=bool)
+        # PWM gates: vectorised formula.
+        pwm = [k for k, g in enumerate(gates) if isinstance(g, PwmGate)]
+        self.pwm_idx = np.array(pwm, dtype=np.int64)
+        self.pwm_period = np.array([gates[k].period for k in pwm])
+        self.pwm_duty = np.array([gates[k].duty for k in pwm])
+        self.pwm_delay = np.array([gates[k].delay for k in pwm])
+        # Comparison gates.
+        cmp_ = [k for k, g in enumerate(gates) if isinstance(g, CompareGate)]
+        self.cmp_idx = np.array(cmp_, dtype=np.int64)
+        self.cmp_pos = NodeSelector(np.array([gates[k].pos for k in cmp_], dtype=np.int64))
+        self.cmp_neg = NodeSelector(np.array([gates[k].neg for k in cmp_], dtype=np.int64))
+        self.cmp_sign = np.array([gates[k].sign for k in cmp_])
+        self.cmp_level = np.array([gates[k].level for k in cmp_])
+        self.cmp_half = np.array([gates[k].hysteresis / 2.0 for k in cmp_])
+        scale = np.maximum.reduce([np.abs(self.cmp_level), 2 * self.cmp_half, np.ones(len(cmp_))]) \
+            if cmp_ else np.empty(0)
+        self.cmp_tol = 1e-9 * scale
+        self.chatter = np.zeros(len(cmp_), dtype=np.int64)
+        self.names = [e.name for e in elements]
+        self.state = np.zeros(n, dtype=bool)
+        self._t_seen = -math.inf
+        self._cursor = 0
+        self._pending: tuple[float, float, np.ndarray] | None = None
+        self._log_t: list[float] = []
+        self._log_s: list[np.ndarray] = []
+        self._g_cache: tuple | None = None
+        self._rewind(0.0)
+
+    # -- time gates -----------------------------------------------------------------
+    def _rewind(self, t: float) -> None:
+        """Start over (a new run): every state as at time t, the log restarted."""
+        self.state[:] = False
+        self.state[self.sched_idx] = self.sched_first
+        self._cursor = 0
+        self._advance_schedules(t)
+        if self.pwm_idx.size:
+            self.state[self.pwm_idx] = pwm_states(t, self.pwm_period, self.pwm_duty, self.pwm_delay)
+        self.chatter[:] = 0
+        self._pending = None
+        self._t_seen = t
+        self._log_t = [t]
+        self._log_s = [self.state.copy()]
+
+    def _advance_schedules(self, t: float) -> None:
+        end = int(np.searchsorted(self.change_t, t * (1 + 1e-12) + 1e-30, side="right"))
+        if end > self._cursor:
+            self.state[self.change_k[self._cursor:end]] = self.change_s[self._cursor:end]
+            self._cursor = end
+
+    def _signal(self, x: np.ndarray) -> np.ndarray:
+        """``sign*(signal - level)`` of every comparison gate: > 0 means the comparison holds."""
+        s = self.cmp_pos(x) - self.cmp_neg(x)
+        return self.cmp_sign * (s - self.cmp_level)
+
+    # -- protocol -----------------------------------------------------------------------
+    def evaluate(self, x, t):
+        if t < self._t_seen:
+            self._rewind(t)
+        g, jf = self._conductances()
+        v = self.pattern.across(x)
+        return self.pattern.f_values(g * v), jf, self.empty, self.empty
+
+    def _conductances(self) -> tuple[np.ndarray, np.ndarray]:
+        """Per-switch conductance and the Jacobian values, cached until a state changes."""
+        key = self.state.tobytes()
+        if self._g_cache is None or self._g_cache[0] != key:
+            g = np.where(self.state, self.g_on, self.g_off)
+            self._g_cache = (key, g, self.pattern.jf_values(g))
+        return self._g_cache[1], self._g_cache[2]
+
+    def update_events(self, t, x):
+        if t < self._t_seen:
+            self._rewind(t)
+        self._t_seen = t
+        old = self.state.copy()
+        self._advance_schedules(t)
+        if self.pwm_idx.size:
+            self.state[self.pwm_idx] = pwm_states(t, self.pwm_period, self.pwm_duty, self.pwm_delay)
+        if self.cmp_idx.size:
+            self._update_comparisons(t, x)
+        changed = bool(np.any(self.state != old))
+        if changed:
+            self._log_t.append(t)
+            self._log_s.append(self.state.copy())
+        return changed
+
+    def _update_comparisons(self, t: float, x: np.ndarray) -> None:
+        y = self._signal(x)
+        closed = self.state[self.cmp_idx]
+        turn_on = ~closed & (y > self.cmp_half - self.cmp_tol)
+        turn_off = closed & (y < -self.cmp_half + self.cmp_tol)
+        if self._pending is not None:
+            te, span, which = self._pending
+            if abs(t - te) <= 1e-6 * span:
+                # The solver landed on a crossing this batch located: take it.
+                turn_on |= which & ~closed
+                turn_off |= which & closed
+            self._pending = None
+        flip = turn_on | turn_off
+        self.state[self.cmp_idx] = closed ^ flip
+        self.chatter = np.where(flip, self.chatter + 1, 0)
+        if np.any(self.chatter >= MAX_CHATTER):
+            k = int(self.cmp_idx[np.argmax(self.chatter)])
+            raise SimulationError(
+                f"switch {self.names[k]} changes state at each of the last {MAX_CHATTER} time points "
+                f"(t = {t:.6g} s): its comparison gate chatters (no or too little hysteresis while its own "
+                "switching drives the compared quantity back across the level), or the step is too long "
+                "to resolve its switching; add hysteresis= or shorten step=",
+                time=t, unknowns=(self.names[k],),
+            )
+
+    def event_time(self, t0, x0, t1, x1):
+        if not self.cmp_idx.size or not t1 > t0:
+            return None
+        y0, y1 = self._signal(x0), self._signal(x1)
+        closed = self.state[self.cmp_idx]
+        target = np.where(closed, -self.cmp_half, self.cmp_half)
+        crosses = np.where(closed, (y0 >= target) & (y1 < target), (y0 <= target) & (y1 > target))
+        if not np.any(crosses):
+            return None
+        with np.errstate(invalid="ignore", divide="ignore"):
+            frac = np.where(crosses, (target - y0) / (y1 - y0), np.inf)
+        frac = np.clip(frac, 0.0, 1.0)
+        te_all = t0 + frac * (t1 - t0)
+        te = float(np.min(te_all))
+        span = t1 - t0
+        self._pending = (te, span, crosses & (te_all <= te + 1e-6 * span))
+        return te
+
+    def corners(self, start, stop):
+        return np.empty(0)
+
+    # -- history -----------------------------------------------------------------------
+    def history(self, column: int) -> tuple[np.ndarray, np.ndarray]:
+        """Times of the state log and switch ``column``'s state at each (1.0 closed)."""
+        states = np.array([s[column] for s in self._log_s], dtype=float)
+        return np.array(self._log_t, dtype=float), states
+
+
+Switch.Batch = SwitchBatch
