@@ -178,8 +178,9 @@ class _Run:
                       "retries": 0}
         self.event_batches = [s.batch for s in system.batches if s.batch.piecewise_linear]
         self.pwl = system.is_piecewise_linear
-        self.version = 0
-        self._affine: dict[int, tuple] = {}
+        self._changes = 0
+        self.version = self._state_key()
+        self._affine: dict = {}
         # Local-error control on the rows of q that hold charge or flux.
         absC = abs(system.C)
         atol_x = np.where(np.array([d == VOLT for d in system.dims]), cfg.voltage_tolerance,
@@ -196,8 +197,13 @@ class _Run:
         self.q_scale = np.zeros(self.q_rows.size)
 
     # -- one solve --------------------------------------------------------------
-    def solve(self, x_guess: np.ndarray, t: float, alpha: float, history: np.ndarray) -> np.ndarray | None:
-        """x at time t for ``alpha*q(x) + history + f(x, t) = 0``; None if Newton fails."""
+    def solve(self, x_guess: np.ndarray, t: float, alpha: float, history: np.ndarray,
+              refine: bool = False) -> np.ndarray | None:
+        """x at time t for ``alpha*q(x) + history + f(x, t) = 0``; None if Newton fails.
+
+        ``refine`` adds iterative refinement to the piecewise-linear solve, for
+        the badly scaled systems of the instant after an event.
+        """
         system = self.system
         if self.pwl:
             key = (alpha, self.version)
@@ -205,10 +211,14 @@ class _Run:
             affine = self._affine.get(self.version)
             if affine is None:
                 affine = system.affine_parts(t)
-                self._affine = {self.version: affine}
+                if len(self._affine) >= 16:
+                    self._affine.pop(next(iter(self._affine)))
+                self._affine[self.version] = affine
             f0, q0, jf, jq = affine
-            if lu is None:
-                lu = self.factorizer.factor(system.matrix_data(alpha, jf, jq), key=key)
+            if lu is None or refine:
+                data = system.matrix_data(alpha, jf, jq)
+                if lu is None:
+                    lu = self.factorizer.factor(data, key=key)
             rhs = system.add_sources(-history, t)
             if f0 is not None:
                 rhs -= f0
@@ -217,6 +227,10 @@ class _Run:
             self.factorizer.solves += 1
             self.stats["newton_iterations"] += 1
             x = lu.solve(rhs)
+            if refine:
+                A = system.matrix(data)
+                for _ in range(2):
+                    x += lu.solve(rhs - A @ x)
             if not np.isfinite(x).all():  # a numerically singular matrix
                 raise SingularMatrix(("(the circuit equations are numerically singular at this step)",))
             return x
@@ -234,9 +248,22 @@ class _Run:
         for b in self.event_batches:
             changed |= bool(b.update_events(t, x))
         if changed:
-            self.version += 1
+            self._changes += 1
+            self.version = self._state_key()
             self.stats["events"] += 1
         return changed
+
+    def _state_key(self):
+        """What the matrix depends on besides alpha: the discrete states of the
+        switched elements, so a state seen before (the same half of a PWM
+        period) reuses its factorisation."""
+        keys = []
+        for b in self.event_batches:
+            k = b.state_key()
+            if k is None:
+                return ("change", self._changes)
+            keys.append(k)
+        return tuple(keys)
 
     def event_time(self, t0, x0, t1, x1) -> float | None:
         best = None
@@ -265,14 +292,17 @@ class _Run:
             self._affine.clear()
             return x
         h0 = first * JUMP_FRACTION
-        x = self.jump(np.zeros(system.n), 0.0, h0, system.q_initial)
-        self.update_events(0.0, x)
+        x = np.zeros(system.n)
+        for _ in range(8):  # settle comparator gates on the starting values
+            x = self.jump(x, 0.0, h0, system.q_initial)
+            if not self.update_events(0.0, x):
+                break
         return x
 
     def jump(self, x: np.ndarray, t: float, h0: float, q: np.ndarray) -> np.ndarray:
         """Values just after t: a tiny backward-Euler step from the charges q."""
         try:
-            x_new = self.solve(x, t + h0, 1.0 / h0, -q / h0)  # sources just after t
+            x_new = self.solve(x, t + h0, 1.0 / h0, -q / h0, refine=True)  # sources just after t
         except SingularMatrix as exc:
             raise_singular(exc, time=t, step=h0, what=f"solving the instant after t = {t:.6g} s")
         if x_new is None:

@@ -250,6 +250,9 @@ class NonlinearBatch:
        located by interpolation), or None. The engine shortens the step to
        land on it. Time-driven changes (a schedule, a PWM gate) are
        ``corners`` instead, which the engine lands on exactly.
+    9. ``state_key()`` returns a hashable summary of the discrete states
+       (or None): factorisations are cached under it, so the two halves of
+       a PWM period each factor once for the whole run.
     """
 
     piecewise_linear: ClassVar[bool] = False
@@ -274,6 +277,11 @@ class NonlinearBatch:
         return False
 
     def event_time(self, t0: float, x0: np.ndarray, t1: float, x1: np.ndarray) -> float | None:
+        return None
+
+    def state_key(self):
+        """A hashable summary of the discrete states (``state.tobytes()``), or
+        None. With it the engine reuses the factorisation of a state seen before."""
         return None
 
     def corners(self, start: float, stop: float) -> np.ndarray:

@@ -491,6 +491,9 @@ class SwitchBatch(NonlinearBatch):
             self._g_cache = (key, g, self.pattern.jf_values(g))
         return self._g_cache[1], self._g_cache[2]
 
+    def state_key(self):
+        return self.state.tobytes()
+
     def update_events(self, t, x):
         if t < self._t_seen:
             self._rewind(t)
