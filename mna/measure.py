@@ -129,7 +129,7 @@ def _is_measurement(call: nl.Call) -> bool:
     if call.func not in MEASUREMENTS:
         return False
     if call.func in FUNCTIONS:  # max, min
-        return bool(call.args) and _is_signal(call.args[0])
+        return bool(call.args) and (_is_signal(call.args[0]) or _has_signal(call.args[0]))
     return True
 
 
@@ -270,7 +270,7 @@ class _Calls:
                 hint="add one, e.g. 'simulate transient until=20 ms'; with 'simulate dc' alone, "
                 "check plain quantities such as v(out) > 4.5 V",
             )
-        ref = self._waveform_ref(call)
+        ref = self._waveform_ref(call, sub)
         extras = self._extras(call, spec, ref, sub)
         start, stop, direction = self._options(call, spec, sub)
         result_dim = _result_dimension(spec, ref)
@@ -306,8 +306,10 @@ class _Calls:
         return (f"{ref.label} ends where it starts ({show(float(v[0]))}) {where}, so it has no step "
                 f"for {call.func}() to measure; put from= before the step and to= after it settles")
 
-    def _waveform_ref(self, call: nl.Call) -> "SignalRef":
+    def _waveform_ref(self, call: nl.Call, sub: Callable[[nl.Expr], Quantity]) -> "SignalRef | _Derived":
         first = call.args[0] if call.args else None
+        if first is not None and not _is_signal(first) and call.func != "energy" and _has_signal(first):
+            return _Derived(first, self, sub)
         if call.func == "energy":
             if not isinstance(first, nl.Name):
                 raise InputError("energy() takes an element name first, like energy(R1, from=2 ms)",
@@ -319,8 +321,9 @@ class _Calls:
             return self.circuit.signal_ref(_energy_signal(call))
         if first is None or not _is_signal(first):
             raise InputError(
-                f"{call.func}() measures a circuit quantity: its first argument is one such as "
-                "v(node), v(a, b), i(ELEMENT), p(ELEMENT) or w(shaft)",
+                f"{call.func}() measures a waveform: its first argument is a circuit quantity such as "
+                "v(node), v(a, b), i(ELEMENT), p(ELEMENT) or w(shaft), or an expression of them "
+                "such as i(F1)^2",
                 first.span if first is not None else call.span,
             )
         return self.circuit.signal_ref(first)
@@ -398,11 +401,102 @@ class _Calls:
     def _samples(self, ref: "SignalRef", call: nl.Call) -> tuple[np.ndarray, np.ndarray]:
         if self.waves is None:
             raise InputError(f"{call.func}() needs the results of a transient run", call.span)
+        if isinstance(ref, _Derived):
+            return self.waves.time, ref.values(self.waves)
         if ref.label not in self.waves:
             raise InputError(
                 f"the transient results hold no {ref.label}", call.span,
                 hint="run the file with mna.measure.run_and_check, which records what checks need")
         return self.waves.time, _to_si(ref, self.waves[ref.label])
+
+
+def _has_signal(expr: nl.Expr) -> bool:
+    return any(kind == "signal" for kind, _ in _walk(expr))
+
+
+class _Derived:
+    """A waveform computed sample by sample from circuit quantities:
+    ``i(F1)^2`` (for the Joule integral I^2*t), ``v(a) * i(L1)``, ``abs(i(L1))``.
+
+    Arithmetic follows the parameter rules (units propagate and are
+    checked); parameters and earlier measures are constants; a measurement
+    call inside is not allowed (measure it first, then use its name).
+    """
+
+    quantity = ""  # no special display unit
+
+    def __init__(self, expr: nl.Expr, calls: "_Calls", sub: Callable[[nl.Expr], Quantity]):
+        self.expr = expr
+        self.calls = calls
+        self.sub = sub
+        self.label = _expr_text(expr)
+        # Evaluating on one NaN sample gives the dimension and checks the units.
+        _, self.dimension = self._eval(expr, lambda ref: np.full(1, math.nan))
+
+    def values(self, waves: "Waveforms") -> np.ndarray:
+        v, _ = self._eval(self.expr, lambda ref: _to_si(ref, waves[ref.label]))
+        return np.broadcast_to(np.asarray(v, dtype=float), waves.time.shape)
+
+    def _eval(self, expr: nl.Expr, samples) -> tuple[Any, Dimension]:
+        if isinstance(expr, nl.Call) and _is_signal(expr):
+            ref = self.calls.circuit.signal_ref(expr)
+            return samples(ref), ref.dimension
+        if isinstance(expr, nl.BinaryOp):
+            a, da = self._eval(expr.left, samples)
+            b, db = self._eval(expr.right, samples)
+            if expr.op in "+-":
+                if da != db:
+                    raise UnitsError(f"cannot {'add' if expr.op == '+' else 'subtract'} {describe(da)} and "
+                                     f"{describe(db)}", expr.span)
+                return (a + b if expr.op == "+" else a - b), da
+            if expr.op == "*":
+                return a * b, da * db
+            if expr.op == "/":
+                return a / b, da / db
+            if db != DIMENSIONLESS or np.ndim(b):
+                raise UnitsError("an exponent must be a plain number, not a waveform", expr.right.span)
+            power = float(b)
+            exponent = int(power) if power.is_integer() else power
+            if da != DIMENSIONLESS and not isinstance(exponent, int):
+                raise UnitsError("a waveform with a unit takes whole-number powers only", expr.right.span)
+            return a ** power, da ** exponent
+        if isinstance(expr, nl.Negate):
+            a, da = self._eval(expr.operand, samples)
+            return -a, da
+        if isinstance(expr, nl.Call) and expr.func in ("abs", "sqrt") and len(expr.args) == 1 and not expr.named:
+            a, da = self._eval(expr.args[0], samples)
+            if expr.func == "abs":
+                return np.abs(a), da
+            return np.sqrt(a), da ** nl_fraction_half()
+        if isinstance(expr, nl.Call) and (expr.func in MEASUREMENTS or expr.func in FUNCTIONS) and _has_signal(expr):
+            raise InputError(
+                f"{expr.func}() inside a waveform expression: measure it on its own line first, "
+                "then use its name", expr.span)
+        q = self.sub(expr)
+        return q.value, q.dim
+
+
+def nl_fraction_half():
+    from fractions import Fraction
+
+    return Fraction(1, 2)
+
+
+def _expr_text(expr: nl.Expr) -> str:
+    """An expression written back as text (labels of derived waveforms)."""
+    if isinstance(expr, nl.Number):
+        return expr.text
+    if isinstance(expr, nl.Name):
+        return expr.name
+    if isinstance(expr, nl.Call):
+        args = [_expr_text(a) for a in expr.args] + [f"{k}={_expr_text(v)}" for k, v, _ in expr.named]
+        return f"{expr.func}({', '.join(args)})"
+    if isinstance(expr, nl.BinaryOp):
+        sep = "^" if expr.op == "^" else f" {expr.op} "
+        return f"{_expr_text(expr.left)}{sep}{_expr_text(expr.right)}"
+    if isinstance(expr, nl.Negate):
+        return f"-{_expr_text(expr.operand)}"
+    return "?"
 
 
 def _usage(func: str, spec: _Spec) -> str:
