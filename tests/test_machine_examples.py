@@ -47,4 +47,5 @@ def test_conveyor_inrush_is_bounded_by_the_stall_current():
     r_total = circuit.elements["MA"].resistance + 40e-3
     peak_a, peak_b = res["i(MA)"].max(), res["i(MB)"].max()
     assert 0.5 * 24 / r_total < peak_a < 24 / r_total
-    assert peak_b < 12 / r_total  # the reduced-voltage start halves the bound
+    # through the 0.6 ohm start resistor the bound is V/(R + R_cable + R_start)
+    assert peak_b < 24 / (r_total + 0.6)
