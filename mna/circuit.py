@@ -439,6 +439,11 @@ class Elaborator:
         return request
 
 
+def _a(word: str) -> str:
+    """The indefinite article for a domain name: "an electrical", "a shaft"."""
+    return "an" if word[:1] in "aeiou" else "a"
+
+
 def _name(op) -> str:
     return op.name
 
@@ -500,12 +505,12 @@ class Circuit:
         elif known != domain:
             if node in REFERENCE.values():
                 msg = (f"{node!r} is the {known} reference; {element.keyword} {element.name} needs "
-                       f"a {domain} node here")
+                       f"{_a(domain)} {domain} node here")
             else:
                 first = self.node_spans.get(node)
                 where = f" (used as {known} at {first.where()})" if first else ""
-                msg = (f"node {node!r} is a {known} node{where}, but {element.keyword} "
-                       f"{element.name} connects it as a {domain} node")
+                msg = (f"node {node!r} is {_a(known)} {known} node{where}, but {element.keyword} "
+                       f"{element.name} connects it as {_a(domain)} {domain} node")
             raise InputError(msg, span)
 
     def add(self, kind: str, name: str, *terminals: str | Sequence[str], value: Any = None, **arguments: Any) -> Element:
@@ -628,7 +633,7 @@ class Circuit:
             close = difflib.get_close_matches(node, [n for n, d in self.nodes.items() if d == domain], n=1)
             raise UnknownNameError(f"no {domain} node named {node!r}", span,
                                    hint=f"did you mean {close[0]!r}?" if close else None)
-        raise InputError(f"{node!r} is a {have} node, not a {domain} node", span)
+        raise InputError(f"{node!r} is {_a(have)} {have} node, not {_a(domain)} {domain} node", span)
 
     # -- analyses -------------------------------------------------------------
     def dc(self, **options: Any):

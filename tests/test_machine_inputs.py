@@ -241,13 +241,13 @@ def test_machine_from_python_with_either_constant_unit():
 @pytest.mark.parametrize("text, message, line, column", [
     # a shaft element on an electrical node
     ("voltage-source V1 a -> gnd 12 V\ninertia J1 a 1e-4 kg*m^2\n",
-     "node 'a' is a electrical node .* inertia J1 connects it as a shaft node", 2, 12),
+     "node 'a' is an electrical node .* inertia J1 connects it as a shaft node", 2, 12),
     # an electrical terminal on a shaft node
     ("inertia J1 rotor 1e-4 kg*m^2\nresistor R1 rotor -> gnd 1 ohm\n",
-     "node 'rotor' is a shaft node .* resistor R1 connects it as a electrical node", 2, 13),
+     "node 'rotor' is a shaft node .* resistor R1 connects it as an electrical node", 2, 13),
     # a machine's shaft on an electrical node
     ("voltage-source V1 a -> gnd 12 V\ndc-machine M1 a -> gnd shaft=a resistance=1 ohm constant=0.05 V*s/rad\n",
-     "node 'a' is a electrical node", 2, 30),
+     "node 'a' is an electrical node", 2, 30),
     # the references of the two domains
     ("dc-machine M1 a -> gnd shaft=gnd resistance=1 ohm constant=0.05 V*s/rad\n",
      "'gnd' is the electrical reference; dc-machine M1 needs a shaft node", 1, 30),
