@@ -584,7 +584,7 @@ class Circuit:
     # -- signal references ------------------------------------------------------
     def signal_ref(self, expr: nl.Expr) -> SignalRef:
         """Resolve ``v(sw)``, ``i(L1)``, ``v(a, b)`` ... against this circuit."""
-        from .units import AMPERE, VOLT
+        from .units import VOLT
 
         if not isinstance(expr, nl.Call) or expr.named or not all(isinstance(a, nl.Name) for a in expr.args):
             raise InputError(

@@ -24,7 +24,7 @@ from pathlib import Path
 from typing import Union
 
 import lark
-from lark import Lark, Token, Transformer, v_args
+from lark import Lark, Token, Transformer
 
 from .errors import NetlistSyntaxError, Span, UnitsError
 from .units import Quantity, UnitError, parse_quantity

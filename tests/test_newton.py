@@ -27,12 +27,12 @@ from scipy.special import wrightomega
 import mna
 from mna import Arg, Branch, Element, NonlinearBatch
 from mna.analyses.common import dc_leak, prepare
-from mna.analyses.dc import gmin_stepping, solve_dc, source_stepping
+from mna.analyses.dc import gmin_stepping, source_stepping
 from mna.cli import main as cli_main
 from mna.elements import CONDUCTOR
 from mna.elements.registry import _extra
 from mna.solver import Factorizer, newton
-from mna.units import AMPERE, DIMENSIONLESS, VOLT
+from mna.units import DIMENSIONLESS, VOLT
 
 K_BOLTZMANN = 1.380649e-23  # J/K, exact (SI 2019)
 Q_ELECTRON = 1.602176634e-19  # C, exact (SI 2019)

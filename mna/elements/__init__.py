@@ -4,7 +4,7 @@ See :mod:`mna.elements.base` for the protocol and
 :mod:`mna.elements.registry` for how kinds are found.
 """
 
-from .base import (  # noqa: F401
+from .base import (  # noqa: F401 - the protocol, re-exported for plugins
     CAPACITOR,
     CONDUCTOR,
     CURRENT,
@@ -23,3 +23,23 @@ from .base import (  # noqa: F401
     Port,
     Unknown,
 )
+
+__all__ = [
+    "CAPACITOR",
+    "CONDUCTOR",
+    "CURRENT",
+    "ELECTRICAL",
+    "ELEMENT",
+    "GYRATOR",
+    "INDUCTOR",
+    "REFERENCE",
+    "SHAFT",
+    "TWO_TERMINAL",
+    "VOLTAGE",
+    "Arg",
+    "Branch",
+    "Element",
+    "NonlinearBatch",
+    "Port",
+    "Unknown",
+]
