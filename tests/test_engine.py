@@ -207,3 +207,16 @@ def test_sample_grid_output():
     assert res.time.size == 201 and res.time[1] == pytest.approx(1e-6)
     exact = np.array([rlc_vc(t) for t in res.time])
     assert np.max(np.abs(res["v(b)"] - exact)) < 2e-3
+
+
+def test_switch_edge_at_the_same_instant_as_a_source_edge():
+    # A gate edge that coincides with an ideal source edge still switches:
+    # after 1 ms the closed 1 ohm switch and the 1 ohm load halve 10 V (Ohm's law).
+    res = mna.parse("""
+voltage-source V1 a -> gnd step(from=0 V, to=10 V, at=1 ms)
+switch Q1 a -> b on=1 ohm off=1 Mohm gate=schedule(open, 1 ms: closed)
+resistor R1 b -> gnd 1 ohm
+""").transient(until=2e-3, step=0.1e-3)
+    assert res.at("v(b)", 1.5e-3) == pytest.approx(5.0, rel=1e-9)
+    at_edge = np.flatnonzero(res.time == 1e-3)
+    assert res["v(b)"][at_edge].tolist() == pytest.approx([0.0, 5.0], abs=1e-4)

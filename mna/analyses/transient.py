@@ -348,8 +348,6 @@ class _Run:
             gap = corners[0] if corners.size else until
             h = min(cfg.max_step, gap, until) * 1e-3
         corner_i = 0
-        smallest = math.inf
-        largest = 0.0
         progress = cfg.progress
         next_report = _time.perf_counter() + 0.2
         uses_qdot = method.uses_derivative
@@ -464,8 +462,6 @@ class _Run:
             t = t_new
             self.record(t, x, rates)
             self.stats["accepted"] += 1
-            smallest = min(smallest, h_try)
-            largest = max(largest, h_try)
             if adaptive:
                 hist_t.append(t)
                 hist_q.append(q[self.q_rows])
@@ -480,8 +476,9 @@ class _Run:
                 grid_k += 1
             # -- corners and events cut the history
             restart = landing and (not fixed or grid_corner[grid_k - 1])
-            jumped = restart and jumps.size and _contains(jumps, t)
-            if jumped or (self.event_batches and self.update_events(t, x)):
+            jumped = bool(restart and jumps.size and _contains(jumps, t))
+            switched = bool(self.event_batches) and self.update_events(t, x)
+            if jumped or switched:
                 x = self.jump(x, t, max(h_try, cfg.min_step) * JUMP_FRACTION, q)
                 q_jump = self.charges(x, t)
                 if Cs is not None:
@@ -504,7 +501,6 @@ class _Run:
                     h = max(RESTART_FRACTION * min(h_try, gap, cfg.max_step), cfg.min_step)
             if t >= until * (1 - 1e-14):
                 break
-        self.smallest, self.largest = smallest, largest
 
     def local_error(self, hist_t, hist_q, t_new, q_new, h, h_prev, order) -> float | None:
         """Largest local truncation error over the charge and flux rows, in units of their tolerance."""
