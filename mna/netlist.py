@@ -614,7 +614,12 @@ def parse_netlist(text: str, file: str | None = None) -> Netlist:
                 tree = parser.parse(chunk.text)
             except lark.exceptions.UnexpectedInput as exc:
                 raise _syntax_error(exc, chunk, file, lines) from None
-            statement = _Builder(chunk, file, lines).transform(tree)
+            try:
+                statement = _Builder(chunk, file, lines).transform(tree)
+            except lark.exceptions.VisitError as exc:
+                # An error of ours raised while building (a bad unit) comes
+                # wrapped by lark; raise it as it is.
+                raise exc.orig_exc from None
         netlist.statements.append(statement)
     return netlist
 

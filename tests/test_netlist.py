@@ -151,3 +151,10 @@ def test_parse_speed_shape_large_file():
     # Not a timing test: a large generated netlist parses to the right count.
     lines = [f"resistor R{i} n{i} -> n{i + 1} 1 ohm" for i in range(5000)]
     assert len(nl.parse_netlist("\n".join(lines)).statements) == 5000
+
+
+def test_bad_unit_inside_a_statement_the_grammar_parses():
+    # Not the fast path: the quantity sits in a simulate line.
+    err = _error("simulate transient until=60 msd step=5 us\n")
+    assert isinstance(err, UnitsError)
+    assert (err.line, err.column) == (1, 29) and "msd" in err.message
