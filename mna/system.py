@@ -325,12 +325,16 @@ def compile_circuit(circuit: "Circuit") -> System:
     s = Stamper(circuit)
     n = s.n
     by_kind: dict[type, list[Element]] = defaultdict(list)
+    kinds: dict[type, list[Element]] = defaultdict(list)
     for element in circuit.elements.values():
         s.current = element
         element.stamp(s)
+        kinds[type(element)].append(element)
         if element.Batch is not None:
             by_kind[type(element)].append(element)
     s.current = None
+    for cls, elems in kinds.items():
+        cls.check_stamped(elems, s)
     batches = [cls.Batch(elems, s) for cls, elems in by_kind.items()]
 
     g_r, g_c, g_v = (np.asarray(a) for a in s._g)

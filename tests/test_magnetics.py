@@ -312,3 +312,25 @@ def test_choke_checks():
     with pytest.raises(mna.InputError, match="saturation-drop"):
         mna.parse("choke L1 a -> gnd 100 uH saturation-current=5 A saturated-inductance=10 uH "
                   "saturation-drop=120 %\n")
+
+
+def test_couplings_that_ask_for_too_much_shared_flux_are_refused():
+    # The inductance matrix [[1, .9, 0], [.9, 1, .9], [0, .9, 1]] (in units of L)
+    # has eigenvalue 1 - 0.9*sqrt(2) < 0: no set of windings stores negative
+    # energy (1/2 i'Li > 0), so this is an input error, though each k < 1.
+    text = """
+voltage-source V1 a -> gnd 1 V
+inductor L1 a -> gnd 1 mH resistance=1 ohm
+inductor L2 b -> gnd 1 mH resistance=1 ohm
+inductor L3 c -> gnd 1 mH resistance=1 ohm
+resistor R2 b -> gnd 1 ohm
+resistor R3 c -> gnd 1 ohm
+coupling K1 L1 L2 0.9
+coupling K2 L2 L3 0.9
+"""
+    with pytest.raises(mna.InputError, match="not positive definite"):
+        mna.parse(text).dc()
+    # A third line joining L1 and L3 at 0.9 makes the matrix definite again
+    # (eigenvalues 1 + 1.8, 0.1, 0.1).
+    op = mna.parse(text + "coupling K3 L1 L3 0.9\n").dc()
+    assert op["i(L1)"] == pytest.approx(1.0)

@@ -209,6 +209,12 @@ class Element:
     def stamp(self, s: "Stamper") -> None:
         """Add this element's constant contributions. Called once per compile."""
 
+    @classmethod
+    def check_stamped(cls, elements: Sequence["Element"], s: "Stamper") -> None:
+        """After every element has stamped: checks that need all instances of
+        the kind at once (the couplings' combined inductance matrix). Raise
+        InputError."""
+
     def corners(self, start: float, stop: float) -> np.ndarray:
         return np.empty(0)
 

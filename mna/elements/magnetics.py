@@ -68,6 +68,46 @@ class Coupling(Element):
             raise InputError(f"coupling {self.name} names {', '.join(repeated)} more than once",
                              self.span_of("inductors"))
 
+    @classmethod
+    def check_stamped(cls, couplings, s) -> None:
+        """The inductance matrix of every group of coupled windings must be
+        positive definite (stored energy 1/2 i'Li > 0 for any currents): each
+        k < 1 alone ensures it for a pair, but several coupling lines can
+        together ask for more than the windings can share."""
+        groups: dict[str, set[str]] = {}
+        for k in couplings:
+            names = set(k.nodes["inductors"])
+            for other in [g for g in groups.values() if g & names]:
+                names |= other
+            for n in names:
+                groups[n] = names
+        seen = []
+        for names in groups.values():
+            if any(names is g for g in seen) or len(names) < 3:
+                continue
+            seen.append(names)
+            order = sorted(names)
+            index = {n: i for i, n in enumerate(order)}
+            L = np.zeros((len(order), len(order)))
+            for n in order:
+                L[index[n], index[n]] = s.circuit.elements[n].params["inductance"]
+            for k in couplings:
+                ind = [n for n in k.nodes["inductors"] if n in index]
+                for a in range(len(ind)):
+                    for b in range(a + 1, len(ind)):
+                        m = k.params["coefficient"] * math.sqrt(L[index[ind[a]], index[ind[a]]]
+                                                                * L[index[ind[b]], index[ind[b]]])
+                        L[index[ind[a]], index[ind[b]]] = L[index[ind[b]], index[ind[a]]] = m
+            scale = np.sqrt(np.outer(np.diag(L), np.diag(L)))
+            if np.linalg.eigvalsh(L / scale).min() <= 1e-12:
+                lines = [k for k in couplings if set(k.nodes["inductors"]) <= names]
+                raise InputError(
+                    f"the couplings {', '.join(k.name for k in lines)} ask {', '.join(order)} to share more "
+                    "flux than any set of windings can: their inductance matrix is not positive definite",
+                    lines[-1].span,
+                    hint="lower one of the coupling coefficients",
+                )
+
     def coupled(self, s) -> list[Inductor]:
         """The coupled inductors, checked against the circuit."""
         out = []
