@@ -19,7 +19,6 @@ from typing import Any, Iterator
 
 import numpy as np
 
-from .errors import InputError
 
 
 @dataclass
@@ -132,9 +131,3 @@ def write_atomic(path: str | Path, text: str | bytes) -> Path:
             pass
         raise
     return path
-
-
-def check_label(label: str) -> str:
-    if not label:
-        raise InputError("empty signal label")
-    return _normal(label)

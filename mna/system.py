@@ -436,12 +436,11 @@ class Probe:
     """
 
     def __init__(self, system: System, time: np.ndarray, x: dict[int, np.ndarray] | None = None,
-                 rates: dict[int, np.ndarray] | None = None, events: dict | None = None):
+                 rates: dict[int, np.ndarray] | None = None):
         self.system = system
         self.time = time
         self._x = x
         self._rates = rates
-        self.events = events or {}
         self.planning = x is None
         self.need_x: set[int] = set()
         self.need_states: set[int] = set()

@@ -43,8 +43,7 @@ operating point (inside a hysteresis band it stays open).
 
 Results: ``v i p`` as any two-terminal element, and ``state`` (1 closed,
 0 open). The switch's state history is kept on its batch during a run and
-read back by :meth:`Switch.output` (the engine may instead pass it as
-``Probe.events[name] = (times, states)``).
+read back by :meth:`Switch.output`.
 """
 
 from __future__ import annotations
@@ -360,9 +359,7 @@ class Switch(TwoTerminal):
     def states(self, probe) -> np.ndarray:
         """Closed (1.0) or open (0.0) at each recorded time."""
         time = np.asarray(probe.time, dtype=float)
-        if self.name in probe.events:
-            log_t, log_s = (np.asarray(a) for a in probe.events[self.name])
-        elif self._batch is not None:
+        if self._batch is not None:
             log_t, log_s = self._batch.history(self._column)
         else:
             return np.zeros_like(time)
