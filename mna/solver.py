@@ -18,6 +18,7 @@ from dataclasses import dataclass
 
 import numpy as np
 import scipy.sparse.linalg as spla
+from scipy.linalg.lapack import dgetrf, dgetrs
 
 from .errors import SimulationError
 from .system import System
@@ -29,6 +30,28 @@ class SingularMatrix(Exception):
     def __init__(self, unknowns: tuple[str, ...]):
         self.unknowns = unknowns
         super().__init__(", ".join(unknowns))
+
+
+#: Systems with at most this many unknowns are factored as dense matrices
+#: (LAPACK getrf/getrs with partial pivoting). For small circuits the call
+#: overhead of a sparse factorisation dominates: on 5 unknowns SuperLU takes
+#: about 30 us per factorisation and 5 us per solve, getrf 1 us and getrs
+#: 0.6 us; dense stays ahead up to a few hundred unknowns on circuit
+#: matrices (``benchmarks/bench_small_systems.py``).
+DENSE_LIMIT = 128
+
+
+class DenseLU:
+    """LU factors of a small dense matrix, with the ``solve`` of SuperLU's object."""
+
+    __slots__ = ("lu", "piv")
+
+    def __init__(self, lu: np.ndarray, piv: np.ndarray):
+        self.lu = lu
+        self.piv = piv
+
+    def solve(self, rhs: np.ndarray) -> np.ndarray:
+        return dgetrs(self.lu, self.piv, rhs)[0]
 
 
 class Factorizer:
@@ -43,6 +66,12 @@ class Factorizer:
         self._last_data: np.ndarray | None = None
         self._last_lu = None
         self._A = None
+        n = system.n
+        self.dense = n <= DENSE_LIMIT
+        if self.dense:
+            # Position of each CSC entry in a column-major n x n array.
+            cols = np.repeat(np.arange(n), np.diff(system.indptr))
+            self._flat = cols * n + system.indices
 
     def factor(self, data: np.ndarray, key=None):
         """LU of the matrix with CSC ``data``. ``key`` identifies data for reuse."""
@@ -53,16 +82,18 @@ class Factorizer:
                 return lu
         elif self._last_data is not None and np.array_equal(data, self._last_data):
             return self._last_lu
-        # One CSC matrix object is reused: only its values change, so its
-        # structure is not validated again for every factorisation.
-        if self._A is None:
-            self._A = self.system.matrix(data.copy())
-        A = self._A
-        A.data = data
-        try:
-            lu = spla.splu(A, permc_spec="COLAMD", options={"SymmetricMode": False})
-        except RuntimeError:
-            raise SingularMatrix(singular_unknowns(self.system, A)) from None
+        lu = self._factor_dense(data) if self.dense else None
+        if lu is None:
+            # One CSC matrix object is reused: only its values change, so its
+            # structure is not validated again for every factorisation.
+            if self._A is None:
+                self._A = self.system.matrix(data.copy())
+            A = self._A
+            A.data = data
+            try:
+                lu = spla.splu(A, permc_spec="COLAMD", options={"SymmetricMode": False})
+            except RuntimeError:
+                raise SingularMatrix(singular_unknowns(self.system, A)) from None
         self.factorizations += 1
         if key is not None:
             self._cache[key] = lu
@@ -72,6 +103,21 @@ class Factorizer:
             self._last_data = data.copy()
             self._last_lu = lu
         return lu
+
+    def _factor_dense(self, data: np.ndarray) -> DenseLU | None:
+        """Dense LU, or None when partial pivoting meets a zero pivot.
+
+        Row pivoting alone can lose a matrix whose entries span 30 orders of
+        magnitude (a junction far forward in a wild Newton iterate); the
+        sparse LU's column ordering then decides, as for large systems.
+        """
+        n = self.system.n
+        buf = np.zeros(n * n)
+        buf[self._flat] = data
+        lu, piv, info = dgetrf(buf.reshape((n, n), order="F"), overwrite_a=1)
+        if info != 0 or not np.isfinite(lu[-1, -1]):
+            return None
+        return DenseLU(lu, piv)
 
     def forget(self) -> None:
         """Drop cached factorisations (after an event changed the matrix)."""
