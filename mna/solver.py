@@ -32,15 +32,6 @@ class SingularMatrix(Exception):
         super().__init__(", ".join(unknowns))
 
 
-#: Systems with at most this many unknowns are factored as dense matrices
-#: (LAPACK getrf/getrs with partial pivoting). For small circuits the call
-#: overhead of a sparse factorisation dominates: on 5 unknowns SuperLU takes
-#: about 30 us per factorisation and 5 us per solve, getrf 1 us and getrs
-#: 0.6 us; dense stays ahead up to a few hundred unknowns on circuit
-#: matrices (``benchmarks/bench_small_systems.py``).
-DENSE_LIMIT = 128
-
-
 class DenseLU:
     """LU factors of a small dense matrix, with the ``solve`` of SuperLU's object."""
 
@@ -66,12 +57,7 @@ class Factorizer:
         self._last_data: np.ndarray | None = None
         self._last_lu = None
         self._A = None
-        n = system.n
-        self.dense = n <= DENSE_LIMIT
-        if self.dense:
-            # Position of each CSC entry in a column-major n x n array.
-            cols = np.repeat(np.arange(n), np.diff(system.indptr))
-            self._flat = cols * n + system.indices
+        self.dense = system.dense
 
     def factor(self, data: np.ndarray, key=None):
         """LU of the matrix with CSC ``data``. ``key`` identifies data for reuse."""
@@ -111,10 +97,7 @@ class Factorizer:
         magnitude (a junction far forward in a wild Newton iterate); the
         sparse LU's column ordering then decides, as for large systems.
         """
-        n = self.system.n
-        buf = np.zeros(n * n)
-        buf[self._flat] = data
-        lu, piv, info = dgetrf(buf.reshape((n, n), order="F"), overwrite_a=1)
+        lu, piv, info = dgetrf(self.system.dense_array(data), overwrite_a=1)
         if info != 0 or not np.isfinite(lu[-1, -1]):
             return None
         return DenseLU(lu, piv)
@@ -239,17 +222,25 @@ def newton(
         factorizer.solves += 1
         return NewtonResult(lu.solve(rhs), 1, True)
 
+    # The linear part alpha*C + G (+ diag) is summed once per solve: its CSC
+    # data seeds every Jacobian, and as an operator it gives the linear
+    # terms of the residual in one product.
+    linear_data = system.G_data + alpha * system.C_data if alpha else system.G_data.copy()
+    if extra_diag is not None:
+        linear_data[system.diag_pos] += extra_diag
+    linear = system.operator(linear_data)
+    constant = -s if history is None else history - s
+    limiters = system.limiting_batches
+
     def linearise(x: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
         """Residual, CSC matrix data, and the nonlinear f and q at ``x``."""
         f_nl, q_nl, jf, jq = system.evaluate_batches(x, t)
-        residual = system.G @ x + f_nl - s
+        residual = linear @ x
+        residual += f_nl
+        residual += constant
         if alpha:
-            residual += alpha * (system.C @ x + q_nl)
-        if history is not None:
-            residual += history
-        if extra_diag is not None:
-            residual += extra_diag * x
-        data = system.matrix_data(alpha, jf, jq, extra_diag)
+            residual += alpha * q_nl
+        data = system.matrix_data(alpha, jf, jq, linear=linear_data)
         if hold is not None:
             system.hold_matrix(data, hold[0])
             residual[hold[0]] = x[hold[0]] - hold[1]
@@ -282,12 +273,12 @@ def newton(
         lu = factorizer.factor(data)
         dx = lu.solve(-residual)
         factorizer.solves += 1
-        if not np.all(np.isfinite(dx)):
+        if not np.isfinite(dx).all():
             return NewtonResult(x, iteration, False, ())
         full = x + dx
         x_new = full
-        for slot in system.batches:
-            x_new = slot.batch.limit(x_new, x)
+        for batch in limiters:
+            x_new = batch.limit(x_new, x)
         limited = x_new is not full and not np.array_equal(x_new, full)
         damped = False
         if damping:
@@ -302,7 +293,7 @@ def newton(
         step = np.abs(x_new - x)
         scale = reltol * np.maximum(np.abs(x_new), np.abs(x)) + system.abstol
         x = x_new
-        if not limited and not damped and np.all(step <= scale):
+        if not limited and not damped and (step <= scale).all():
             return NewtonResult(x, iteration, True)
         residual, data, f_nl, q_nl = trial if damping else linearise(x)
     worst = np.argsort(-(step / scale))[:4]

@@ -36,6 +36,14 @@ if TYPE_CHECKING:  # pragma: no cover
 ABSTOL = {VOLT: 1e-6, AMPERE: 1e-12, ANGULAR_SPEED: 1e-6}
 DEFAULT_ABSTOL = 1e-9
 
+#: Systems with at most this many unknowns keep their matrices dense: they
+#: are factored with LAPACK (getrf/getrs, partial pivoting) and multiplied
+#: as arrays. For small circuits the call overhead of sparse routines
+#: dominates: on 5 unknowns SuperLU takes about 30 us per factorisation and
+#: 5 us per solve, getrf 1 us and getrs 0.6 us, and a sparse mat-vec 4 us
+#: against 1 us. ``benchmarks/bench_small_systems.py`` prints the ratios.
+DENSE_LIMIT = 128
+
 
 class Stamper:
     """Collects element contributions at compile time.
@@ -202,6 +210,15 @@ class System:
         """Every batch is affine between events: one solve per step, LU reused until an event."""
         return all(slot.batch.piecewise_linear for slot in self.batches)
 
+    @property
+    def limiting_batches(self) -> list[NonlinearBatch]:
+        """Batches that override ``limit`` (junction limiting), in order."""
+        found = self.__dict__.get("_limiting_batches")
+        if found is None:
+            found = self.__dict__["_limiting_batches"] = [
+                slot.batch for slot in self.batches if type(slot.batch).limit is not NonlinearBatch.limit]
+        return found
+
     def affine_parts(self, t: float):
         """For a piecewise-linear system: f and q offsets at x = 0 and the batch Jacobians.
 
@@ -237,9 +254,18 @@ class System:
 
     # -- matrices ----------------------------------------------------------------
     def matrix_data(self, alpha: float, jf: list[np.ndarray] | None = None,
-                    jq: list[np.ndarray] | None = None, extra_diag: np.ndarray | None = None) -> np.ndarray:
-        """CSC data of ``alpha*C + G + dfnl/dx + alpha*dqnl/dx (+ diag)``."""
-        data = self.G_data + alpha * self.C_data if alpha else self.G_data.copy()
+                    jq: list[np.ndarray] | None = None, extra_diag: np.ndarray | None = None,
+                    linear: np.ndarray | None = None) -> np.ndarray:
+        """CSC data of ``alpha*C + G + dfnl/dx + alpha*dqnl/dx (+ diag)``.
+
+        ``linear``, if given, is the data of ``alpha*C + G (+ diag)`` already
+        summed (it is copied, not changed); ``extra_diag`` is then ignored.
+        """
+        if linear is not None:
+            data = linear.copy()
+            extra_diag = None
+        else:
+            data = self.G_data + alpha * self.C_data if alpha else self.G_data.copy()
         if jf is not None:
             for slot, vals in zip(self.batches, jf):
                 if vals.size:
@@ -267,6 +293,33 @@ class System:
     def matrix(self, data: np.ndarray) -> sp.csc_matrix:
         return sp.csc_matrix((data, self.indices, self.indptr), shape=(self.n, self.n))
 
+    @property
+    def dense(self) -> bool:
+        """Whether matrices are kept dense (at most DENSE_LIMIT unknowns)."""
+        return self.n <= DENSE_LIMIT
+
+    def dense_array(self, data: np.ndarray) -> np.ndarray:
+        """The matrix with CSC ``data`` as a new column-major dense array."""
+        flat = self.__dict__.get("_dense_flat")
+        if flat is None:
+            cols = np.repeat(np.arange(self.n), np.diff(self.indptr))
+            flat = self.__dict__["_dense_flat"] = cols * self.n + self.indices
+        buf = np.zeros(self.n * self.n)
+        buf[flat] = data
+        return buf.reshape((self.n, self.n), order="F")
+
+    def operator(self, data: np.ndarray):
+        """The matrix with CSC ``data``, in the form that multiplies fastest (``@``)."""
+        return self.dense_array(data) if self.dense else self.matrix(data)
+
+    @property
+    def C_operator(self):
+        """C for ``C @ x`` (dense for small systems), built once."""
+        op = self.__dict__.get("_C_operator")
+        if op is None:
+            op = self.__dict__["_C_operator"] = self.C.toarray() if self.dense else self.C
+        return op
+
     # -- nonlinear parts -----------------------------------------------------------
     def evaluate_batches(self, x: np.ndarray, t: float):
         """Nonlinear f and q (as full vectors) and the Jacobian values per batch."""
@@ -286,7 +339,7 @@ class System:
 
     def charges(self, x: np.ndarray, t: float = 0.0) -> np.ndarray:
         """q(x): linear charges plus any nonlinear ones."""
-        q = self.C @ x
+        q = self.C_operator @ x
         if any(slot.batch.q_rows.size for slot in self.batches):
             q += self.evaluate_batches(x, t)[1]
         return q

@@ -61,6 +61,10 @@ if TYPE_CHECKING:  # pragma: no cover
 #: a source charges at once; a switch voltage jumps when it opens).
 JUMP_FRACTION = 1e-9
 
+#: Newton iterations allowed from a remembered guess before the jump solve
+#: starts again from the values before the jump.
+JUMP_GUESS_ITERATIONS = 6
+
 DEFAULT_TOLERANCE = 1e-3  # relative local error per step
 DEFAULT_VOLTAGE_TOLERANCE = 1e-6  # V, absolute floor of the local error
 DEFAULT_CURRENT_TOLERANCE = 1e-9  # A
@@ -195,10 +199,14 @@ class _Run:
         self.q_rows = np.array(sorted(q_rows), dtype=np.int64)
         self.q_atol = self.q_atol[self.q_rows] if self.q_rows.size else np.empty(0)
         self.q_scale = np.zeros(self.q_rows.size)
+        #: The accepted first step after a restart into each switch state.
+        self.restart_memory: dict = {}
+        #: The values after the last jump into each switch state (Newton's guess).
+        self.jump_memory: dict = {}
 
     # -- one solve --------------------------------------------------------------
     def solve(self, x_guess: np.ndarray, t: float, alpha: float, history: np.ndarray,
-              refine: bool = False) -> np.ndarray | None:
+              refine: bool = False, max_iterations: int = 50) -> np.ndarray | None:
         """x at time t for ``alpha*q(x) + history + f(x, t) = 0``; None if Newton fails.
 
         ``refine`` adds iterative refinement to the piecewise-linear solve, for
@@ -234,7 +242,7 @@ class _Run:
             if not np.isfinite(x).all():  # a numerically singular matrix
                 raise SingularMatrix(("(the circuit equations are numerically singular at this step)",))
             return x
-        res = newton(system, self.factorizer, x_guess, t, alpha, history)
+        res = newton(system, self.factorizer, x_guess, t, alpha, history, max_iterations=max_iterations)
         self.stats["newton_iterations"] += res.iterations
         self._worst = res.worst
         return res.x if res.converged else None
@@ -300,9 +308,22 @@ class _Run:
         return x
 
     def jump(self, x: np.ndarray, t: float, h0: float, q: np.ndarray) -> np.ndarray:
-        """Values just after t: a tiny backward-Euler step from the charges q."""
+        """Values just after t: a tiny backward-Euler step from the charges q.
+
+        A nonlinear circuit's Newton iteration starts from the values after
+        the last jump into the same switch state when there was one (the
+        same edge of the previous period: the junctions already on the
+        right side), and from the values before the jump otherwise.
+        """
         try:
-            x_new = self.solve(x, t + h0, 1.0 / h0, -q / h0, refine=True)  # sources just after t
+            x_new = None
+            remembered = self.jump_memory.get(self.version) if not self.pwl else None
+            if remembered is not None:
+                x_new = self.solve(remembered, t + h0, 1.0 / h0, -q / h0, max_iterations=JUMP_GUESS_ITERATIONS)
+            if x_new is None:
+                x_new = self.solve(x, t + h0, 1.0 / h0, -q / h0, refine=True)  # sources just after t
+            if x_new is not None and not self.pwl:
+                self.jump_memory[self.version] = x_new
         except SingularMatrix as exc:
             raise_singular(exc, time=t, step=h0, what=f"solving the instant after t = {t:.6g} s")
         if x_new is None:
@@ -358,6 +379,12 @@ class _Run:
         restart_steps = method.restart_steps
         since_restart = 0
         x_last = None
+        # After a restart with a jump solve: the rates of the charge and flux
+        # rows just after the discontinuity (for the first step's error
+        # estimate), and the key under which that first step is remembered.
+        qdot0 = None
+        restart_key = None
+        h_smooth = h
 
         while t < until:
             if progress is not None and _time.perf_counter() > next_report:
@@ -376,13 +403,16 @@ class _Run:
                 h_try = _snap(h_try, cfg.step)
             else:
                 h_try = min(h, cfg.max_step)
+                if since_restart > 0:
+                    h_smooth = h_try
                 gap = next_corner - t
                 if h_try >= gap * (1 - 1e-9):
                     h_try, t_new, landing = gap, next_corner, True
                 else:
                     if h_try > 0.5 * gap:
                         h_try = 0.5 * gap
-                    h_try = _ladder(h_try, until)
+                    if self.pwl:
+                        h_try = _ladder(h_try, until)
                     t_new, landing = t + h_try, False
             # -- solve
             alpha, b0, b1, g0 = method.coefficients(h_try, h_prev if since_restart >= restart_steps else None)
@@ -425,9 +455,12 @@ class _Run:
             # -- local error (adaptive runs only)
             h_next = h
             if not fixed and self.q_rows.size:
-                err = self.local_error(hist_t, hist_q, t_new, q_new[self.q_rows], h_try, h_prev, order)
+                err = self.local_error(hist_t, hist_q, t_new, q_new[self.q_rows], h_try, h_prev, order,
+                                       qdot0 if since_restart == 0 else None)
                 if err is not None:
-                    factor = SAFETY * (max(err, 1e-10) ** (-1.0 / (order + 1)))
+                    # (the restart steps are backward Euler: first order)
+                    step_order = order if since_restart >= restart_steps else 1
+                    factor = SAFETY * (max(err, 1e-10) ** (-1.0 / (step_order + 1)))
                     if err > 1.0:
                         self.stats["rejected"] += 1
                         h = h_try * max(0.2, min(factor, 0.9))
@@ -469,6 +502,10 @@ class _Run:
                     del hist_t[0], hist_q[0]
                 if self.q_rows.size:
                     np.maximum(self.q_scale, np.abs(hist_q[-1]), out=self.q_scale)
+            if restart_key is not None and since_restart == 0:
+                # What the error allows for this first step, for the next
+                # restart into the same state (so it may grow period by period).
+                self.restart_memory[restart_key] = h_next
             h_prev = h_try
             since_restart += 1
             h = h_next if not fixed else cfg.step
@@ -478,13 +515,19 @@ class _Run:
             restart = landing and (not fixed or grid_corner[grid_k - 1])
             jumped = bool(restart and jumps.size and _contains(jumps, t))
             switched = bool(self.event_batches) and self.update_events(t, x)
+            qdot0 = restart_key = None
             if jumped or switched:
-                x = self.jump(x, t, max(h_try, cfg.min_step) * JUMP_FRACTION, q)
+                h0 = max(h_try, cfg.min_step) * JUMP_FRACTION
+                x = self.jump(x, t, h0, q)
                 q_jump = self.charges(x, t)
                 if Cs is not None:
                     qs_jump = Cs @ x
-                    rates = (qs_jump - qs) / (max(h_try, cfg.min_step) * JUMP_FRACTION)
+                    rates = (qs_jump - qs) / h0
                     qs = qs_prev = qs_jump
+                if adaptive:
+                    # The jump solve is a backward-Euler step of h0 from the
+                    # charges before: its slope is the rate just after t.
+                    qdot0 = (q_jump[self.q_rows] - q[self.q_rows]) / h0
                 q = q_prev = q_jump
                 self.record(t, x, rates)
                 restart = True
@@ -495,21 +538,38 @@ class _Run:
                 if adaptive:
                     hist_t, hist_q = [t], [q[self.q_rows]]
                 if not fixed:
-                    # The time scale after a discontinuity is unknown: start
-                    # small and let the error control grow the step.
                     gap = (corners[corner_i + 1] if corner_i + 1 < corners.size else until) - t
-                    h = max(RESTART_FRACTION * min(h_try, gap, cfg.max_step), cfg.min_step)
+                    if qdot0 is not None:
+                        # The first step's error is estimated from the rates
+                        # just after the jump, so it may start long: as long
+                        # as the first step after the same state last time,
+                        # or else as the step before; a rejection shortens it.
+                        restart_key = self.version
+                        h = min(self.restart_memory.get(restart_key, h_smooth), gap, cfg.max_step)
+                        h = max(h, cfg.min_step)
+                    else:
+                        # The time scale after a corner is unknown: start
+                        # small and let the error control grow the step.
+                        h = max(RESTART_FRACTION * min(h_try, gap, cfg.max_step), cfg.min_step)
             if t >= until * (1 - 1e-14):
                 break
 
-    def local_error(self, hist_t, hist_q, t_new, q_new, h, h_prev, order) -> float | None:
-        """Largest local truncation error over the charge and flux rows, in units of their tolerance."""
+    def local_error(self, hist_t, hist_q, t_new, q_new, h, h_prev, order, qdot0=None) -> float | None:
+        """Largest local truncation error over the charge and flux rows, in units of their tolerance.
+
+        ``qdot0``: the rates at the last point (after a jump solve), for the
+        first step after a restart: with them the backward-Euler error
+        ``h^2 q''/2`` is ``(q1 - q0) - h*qdot0`` (a confluent divided
+        difference, Hermite data at the restart point).
+        """
         ts = hist_t + [t_new]
         qs = hist_q + [q_new]
         need = order + 2
-        if len(ts) < 3 or h_prev is None:
+        if len(ts) == 2 and qdot0 is not None:
+            lte = (q_new - hist_q[-1]) - h * qdot0
+        elif len(ts) < 3 or h_prev is None:
             return None
-        if len(ts) < need:
+        elif len(ts) < need:
             # Not enough history for the method's own order: use a first-order estimate.
             lte = h * h * _divided_difference(ts[-3:], qs[-3:])
         elif order == 1:
