@@ -58,6 +58,8 @@ class Factorizer:
         self._last_lu = None
         self._A = None
         self.dense = system.dense
+        self._last_dense: np.ndarray | None = None
+        self._last_dense_lu = None
 
     def factor(self, data: np.ndarray, key=None):
         """LU of the matrix with CSC ``data``. ``key`` identifies data for reuse."""
@@ -68,18 +70,9 @@ class Factorizer:
                 return lu
         elif self._last_data is not None and np.array_equal(data, self._last_data):
             return self._last_lu
-        lu = self._factor_dense(data) if self.dense else None
+        lu = self._dense_lu(self.system.dense_array(data)) if self.dense else None
         if lu is None:
-            # One CSC matrix object is reused: only its values change, so its
-            # structure is not validated again for every factorisation.
-            if self._A is None:
-                self._A = self.system.matrix(data.copy())
-            A = self._A
-            A.data = data
-            try:
-                lu = spla.splu(A, permc_spec="COLAMD", options={"SymmetricMode": False})
-            except RuntimeError:
-                raise SingularMatrix(singular_unknowns(self.system, A)) from None
+            lu = self._sparse_lu(data)
         self.factorizations += 1
         if key is not None:
             self._cache[key] = lu
@@ -90,23 +83,53 @@ class Factorizer:
             self._last_lu = lu
         return lu
 
-    def _factor_dense(self, data: np.ndarray) -> DenseLU | None:
+    def factor_dense(self, matrix: np.ndarray):
+        """LU of a column-major dense matrix, reused while the matrix is unchanged.
+
+        The caller must not change ``matrix`` afterwards (it is kept for the
+        comparison).
+        """
+        if self._last_dense is not None and np.array_equal(matrix, self._last_dense):
+            return self._last_dense_lu
+        lu = self._dense_lu(matrix, overwrite=False)
+        if lu is None:
+            lu = self._sparse_lu(self.system.csc_data(matrix))
+        self.factorizations += 1
+        self._last_dense, self._last_dense_lu = matrix, lu
+        return lu
+
+    @staticmethod
+    def _dense_lu(matrix: np.ndarray, overwrite: bool = True) -> DenseLU | None:
         """Dense LU, or None when partial pivoting meets a zero pivot.
 
         Row pivoting alone can lose a matrix whose entries span 30 orders of
         magnitude (a junction far forward in a wild Newton iterate); the
         sparse LU's column ordering then decides, as for large systems.
         """
-        lu, piv, info = dgetrf(self.system.dense_array(data), overwrite_a=1)
+        lu, piv, info = dgetrf(matrix, overwrite_a=int(overwrite))
         if info != 0 or not np.isfinite(lu[-1, -1]):
             return None
         return DenseLU(lu, piv)
+
+    def _sparse_lu(self, data: np.ndarray):
+        # One CSC matrix object is reused: only its values change, so its
+        # structure is not validated again for every factorisation.
+        if self._A is None:
+            self._A = self.system.matrix(data.copy())
+        A = self._A
+        A.data = data
+        try:
+            return spla.splu(A, permc_spec="COLAMD", options={"SymmetricMode": False})
+        except RuntimeError:
+            raise SingularMatrix(singular_unknowns(self.system, A)) from None
 
     def forget(self) -> None:
         """Drop cached factorisations (after an event changed the matrix)."""
         self._cache.clear()
         self._last_data = None
         self._last_lu = None
+        self._last_dense = None
+        self._last_dense_lu = None
 
 
 def singular_unknowns(system: System, A) -> tuple[str, ...]:
@@ -228,23 +251,33 @@ def newton(
     linear_data = system.G_data + alpha * system.C_data if alpha else system.G_data.copy()
     if extra_diag is not None:
         linear_data[system.diag_pos] += extra_diag
+    dense = system.dense
     linear = system.operator(linear_data)
     constant = -s if history is None else history - s
     limiters = system.limiting_batches
+    charges = bool(alpha) and system.has_nonlinear_charges
 
     def linearise(x: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-        """Residual, CSC matrix data, and the nonlinear f and q at ``x``."""
+        """Residual, matrix (dense array or CSC data), and the nonlinear f and q at ``x``."""
         f_nl, q_nl, jf, jq = system.evaluate_batches(x, t)
         residual = linear @ x
         residual += f_nl
         residual += constant
-        if alpha:
+        if charges:
             residual += alpha * q_nl
-        data = system.matrix_data(alpha, jf, jq, linear=linear_data)
+        if dense:
+            matrix = system.dense_jacobian(linear, alpha, jf, jq)
+            if hold is not None:
+                rows = hold[0]
+                matrix[rows, :] = 0.0
+                matrix[rows, rows] = 1.0
+        else:
+            matrix = system.matrix_data(alpha, jf, jq, linear=linear_data)
+            if hold is not None:
+                system.hold_matrix(matrix, hold[0])
         if hold is not None:
-            system.hold_matrix(data, hold[0])
             residual[hold[0]] = x[hold[0]] - hold[1]
-        return residual, data, f_nl, q_nl
+        return residual, matrix, f_nl, q_nl
 
     def balanced(x: np.ndarray, residual: np.ndarray, f_nl: np.ndarray, q_nl: np.ndarray) -> bool:
         """Every equation holds to RESIDUAL_RELTOL of the terms that make it up."""
@@ -270,7 +303,7 @@ def newton(
             # The update is stuck at round-off while every equation holds to
             # 1e-12 of its terms: nothing more can be gained in floating point.
             return NewtonResult(x, iteration - 1, True)
-        lu = factorizer.factor(data)
+        lu = factorizer.factor_dense(data) if dense else factorizer.factor(data)
         dx = lu.solve(-residual)
         factorizer.solves += 1
         if not np.isfinite(dx).all():

@@ -298,15 +298,42 @@ class System:
         """Whether matrices are kept dense (at most DENSE_LIMIT unknowns)."""
         return self.n <= DENSE_LIMIT
 
-    def dense_array(self, data: np.ndarray) -> np.ndarray:
-        """The matrix with CSC ``data`` as a new column-major dense array."""
+    @property
+    def dense_flat(self) -> np.ndarray:
+        """Position of each CSC data entry in a column-major n x n array."""
         flat = self.__dict__.get("_dense_flat")
         if flat is None:
             cols = np.repeat(np.arange(self.n), np.diff(self.indptr))
             flat = self.__dict__["_dense_flat"] = cols * self.n + self.indices
+        return flat
+
+    def dense_array(self, data: np.ndarray) -> np.ndarray:
+        """The matrix with CSC ``data`` as a new column-major dense array."""
         buf = np.zeros(self.n * self.n)
-        buf[flat] = data
+        buf[self.dense_flat] = data
         return buf.reshape((self.n, self.n), order="F")
+
+    def csc_data(self, dense: np.ndarray) -> np.ndarray:
+        """The CSC data of a column-major dense array on the shared pattern."""
+        return dense.reshape(-1, order="F")[self.dense_flat]
+
+    def dense_jacobian(self, linear: np.ndarray, alpha: float, jf: list[np.ndarray],
+                       jq: list[np.ndarray]) -> np.ndarray:
+        """``linear + dfnl/dx + alpha*dqnl/dx`` as a new column-major dense array.
+
+        ``linear`` is the dense ``alpha*C + G (+ diag)`` (not changed).
+        """
+        J = linear.copy(order="F")
+        flat = J.reshape(-1, order="F")  # a view: J is column-major
+        for plan, vals_f, vals_q in zip(self._batch_plan, jf, jq):
+            if vals_f.size:
+                if plan.jf_unique:
+                    flat[plan.jf_flat] += vals_f
+                else:
+                    np.add.at(flat, plan.jf_flat, vals_f)
+            if alpha and vals_q.size:
+                np.add.at(flat, plan.jq_flat, alpha * vals_q)
+        return J
 
     def operator(self, data: np.ndarray):
         """The matrix with CSC ``data``, in the form that multiplies fastest (``@``)."""
@@ -321,26 +348,57 @@ class System:
         return op
 
     # -- nonlinear parts -----------------------------------------------------------
+    @property
+    def _batch_plan(self) -> list["_BatchPlan"]:
+        plan = self.__dict__.get("_batch_plan_cache")
+        if plan is None:
+            flat = self.dense_flat if self.dense else None
+            plan = self.__dict__["_batch_plan_cache"] = [_BatchPlan.of(slot, flat) for slot in self.batches]
+        return plan
+
+    @property
+    def has_nonlinear_charges(self) -> bool:
+        """Whether any batch contributes to q (a saturating choke's flux)."""
+        return any(p.q_rows.size for p in self._batch_plan)
+
     def evaluate_batches(self, x: np.ndarray, t: float):
-        """Nonlinear f and q (as full vectors) and the Jacobian values per batch."""
-        f = np.zeros(self.n)
-        q = np.zeros(self.n)
+        """Nonlinear f and q (as full vectors) and the Jacobian values per batch.
+
+        When no batch has charges, q is a shared read-only zero vector.
+        """
+        n = self.n
+        f = np.zeros(n)
+        q = None
         jf, jq = [], []
-        for slot in self.batches:
-            b = slot.batch
-            fv, jfv, qv, jqv = b.evaluate(x, t)
-            if b.f_rows.size:
-                f += np.bincount(b.f_rows, fv, minlength=self.n)
-            if b.q_rows.size:
-                q += np.bincount(b.q_rows, qv, minlength=self.n)
+        for plan in self._batch_plan:
+            fv, jfv, qv, jqv = plan.batch.evaluate(x, t)
+            if plan.f_rows.size:
+                if plan.f_unique:
+                    f[plan.f_rows] += fv
+                else:
+                    f += np.bincount(plan.f_rows, fv, minlength=n)
+            if plan.q_rows.size:
+                if q is None:
+                    q = np.zeros(n)
+                q += np.bincount(plan.q_rows, qv, minlength=n)
             jf.append(np.asarray(jfv, dtype=float))
             jq.append(np.asarray(jqv, dtype=float))
+        if q is None:
+            q = self._zero_charges
         return f, q, jf, jq
+
+    @property
+    def _zero_charges(self) -> np.ndarray:
+        z = self.__dict__.get("_zero_charges_cache")
+        if z is None:
+            z = self.__dict__["_zero_charges_cache"] = np.zeros(self.n)
+            z.flags.writeable = False
+        return z
 
     def charges(self, x: np.ndarray, t: float = 0.0) -> np.ndarray:
         """q(x): linear charges plus any nonlinear ones."""
         q = self.C_operator @ x
-        if any(slot.batch.q_rows.size for slot in self.batches):
+        if self.has_nonlinear_charges:
             q += self.evaluate_batches(x, t)[1]
         return q
 
@@ -358,6 +416,35 @@ class System:
 
     def describe_unknowns(self, indices) -> tuple[str, ...]:
         return tuple(self.names[i] for i in indices)
+
+
+@dataclass
+class _BatchPlan:
+    """How one batch's values land in the system's vectors and dense matrix."""
+
+    batch: NonlinearBatch
+    f_rows: np.ndarray
+    f_unique: bool  # no repeated row: a fancy-index add is exact
+    q_rows: np.ndarray
+    jf_flat: np.ndarray | None  # dense column-major positions (small systems)
+    jf_unique: bool
+    jq_flat: np.ndarray | None
+
+    @classmethod
+    def of(cls, slot: BatchSlot, dense_flat: np.ndarray | None) -> "_BatchPlan":
+        b = slot.batch
+        f_rows = np.asarray(b.f_rows, dtype=np.int64)
+        jf_flat = dense_flat[slot.jf_pos] if dense_flat is not None else None
+        jq_flat = dense_flat[slot.jq_pos] if dense_flat is not None else None
+        return cls(
+            batch=b,
+            f_rows=f_rows,
+            f_unique=np.unique(f_rows).size == f_rows.size,
+            q_rows=np.asarray(b.q_rows, dtype=np.int64),
+            jf_flat=jf_flat,
+            jf_unique=jf_flat is not None and np.unique(jf_flat).size == jf_flat.size,
+            jq_flat=jq_flat,
+        )
 
 
 def _csc_pattern(n: int, rows: np.ndarray, cols: np.ndarray):
