@@ -33,16 +33,26 @@ class SingularMatrix(Exception):
 
 
 class DenseLU:
-    """LU factors of a small dense matrix, with the ``solve`` of SuperLU's object."""
+    """LU factors of a small dense matrix, with the ``solve`` of SuperLU's object.
 
-    __slots__ = ("lu", "piv")
+    ``row_scale``/``col_scale``, when given, are the equilibration of the
+    factored matrix ``diag(r) A diag(c)``: ``A x = b`` is solved as
+    ``x = c * solve(r * b)``.
+    """
 
-    def __init__(self, lu: np.ndarray, piv: np.ndarray):
+    __slots__ = ("lu", "piv", "row_scale", "col_scale")
+
+    def __init__(self, lu: np.ndarray, piv: np.ndarray, row_scale: np.ndarray | None = None,
+                 col_scale: np.ndarray | None = None):
         self.lu = lu
         self.piv = piv
+        self.row_scale = row_scale
+        self.col_scale = col_scale
 
     def solve(self, rhs: np.ndarray) -> np.ndarray:
-        return dgetrs(self.lu, self.piv, rhs)[0]
+        if self.row_scale is None:
+            return dgetrs(self.lu, self.piv, rhs)[0]
+        return self.col_scale * dgetrs(self.lu, self.piv, self.row_scale * rhs)[0]
 
 
 class Factorizer:
@@ -91,7 +101,7 @@ class Factorizer:
         """
         if self._last_dense is not None and np.array_equal(matrix, self._last_dense):
             return self._last_dense_lu
-        lu = self._dense_lu(matrix, overwrite=False)
+        lu = self._dense_lu(matrix)
         if lu is None:
             lu = self._sparse_lu(self.system.csc_data(matrix))
         self.factorizations += 1
@@ -99,17 +109,30 @@ class Factorizer:
         return lu
 
     @staticmethod
-    def _dense_lu(matrix: np.ndarray, overwrite: bool = True) -> DenseLU | None:
-        """Dense LU, or None when partial pivoting meets a zero pivot.
+    def _dense_lu(matrix: np.ndarray) -> DenseLU | None:
+        """Dense LU, or None when even the equilibrated matrix has a zero pivot.
 
         Row pivoting alone can lose a matrix whose entries span 30 orders of
-        magnitude (a junction far forward in a wild Newton iterate); the
-        sparse LU's column ordering then decides, as for large systems.
+        magnitude (the junction conductances of a wild Newton iterate):
+        ``1 + 5e19`` rounds to ``5e19`` and a later pivot cancels to zero.
+        Then rows and columns are scaled to a largest entry of 1
+        (equilibration, as in LAPACK's expert drivers) and the matrix is
+        factored again; if that fails too, the sparse LU decides.
         """
-        lu, piv, info = dgetrf(matrix, overwrite_a=int(overwrite))
+        lu, piv, info = dgetrf(matrix, overwrite_a=0)
+        if info == 0 and np.isfinite(lu[-1, -1]):
+            return DenseLU(lu, piv)
+        with np.errstate(divide="ignore", over="ignore", invalid="ignore"):
+            r = 1.0 / np.abs(matrix).max(axis=1)
+            scaled = matrix * r[:, None]
+            c = 1.0 / np.abs(scaled).max(axis=0)
+            scaled *= c[None, :]
+        if not (np.isfinite(r).all() and np.isfinite(c).all()):
+            return None  # an empty row or column: structurally singular
+        lu, piv, info = dgetrf(np.asfortranarray(scaled), overwrite_a=1)
         if info != 0 or not np.isfinite(lu[-1, -1]):
             return None
-        return DenseLU(lu, piv)
+        return DenseLU(lu, piv, r, c)
 
     def _sparse_lu(self, data: np.ndarray):
         # One CSC matrix object is reused: only its values change, so its

@@ -245,6 +245,8 @@ class DiodeBatch(NonlinearBatch):
             return x_new  # the usual case near convergence: nothing to limit
         v_old = self.pattern.across(x_old)
         v_lim = limit_junction(v_new, v_old, self.nvt, self.vcrit)
+        if v_lim is v_new and not self.any_breakdown:
+            return x_new  # every junction above vcrit moved less than 2 nVt
         if self.any_breakdown:
             # The same rule on the reverse voltage beyond the knee, u = -(v + BV).
             u_new, u_old = -(v_lim + self.bv), -(v_old + self.bv)
