@@ -39,10 +39,11 @@ DEFAULT_ABSTOL = 1e-9
 #: Systems with at most this many unknowns keep their matrices dense: they
 #: are factored with LAPACK (getrf/getrs, partial pivoting) and multiplied
 #: as arrays. For small circuits the call overhead of sparse routines
-#: dominates: on 5 unknowns SuperLU takes about 30 us per factorisation and
-#: 5 us per solve, getrf 1 us and getrs 0.6 us, and a sparse mat-vec 4 us
-#: against 1 us. ``benchmarks/bench_small_systems.py`` prints the ratios.
-DENSE_LIMIT = 128
+#: dominates: on 5 unknowns SuperLU takes about 20-30 us per factorisation
+#: and 3 us per solve, getrf 1 us and getrs 0.6 us, and a sparse mat-vec
+#: 3 us against 1 us. On ladder matrices dense factorisation stops winning
+#: near 90 unknowns (``benchmarks/bench_small_systems.py`` prints the ratios).
+DENSE_LIMIT = 80
 
 
 class Stamper:

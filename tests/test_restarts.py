@@ -206,7 +206,7 @@ def test_newton_agrees_between_dense_and_sparse_systems(monkeypatch):
     text = ("voltage-source V1 s -> gnd 5 V\nresistor R1 s -> a 1 kohm\n"
             "diode D1 a -> gnd saturation-current=1e-14 A\n")
     answers = []
-    for limit in (128, 0):
+    for limit in (80, 0):
         monkeypatch.setattr(system_module, "DENSE_LIMIT", limit)
         system, _ = prepare(mna.parse(text))
         res = newton(system, Factorizer(system), np.zeros(system.n), 0.0, 0.0, None, damping=True)
