@@ -656,12 +656,22 @@ class Circuit:
         ``step`` (s) fixes the time step. ``start`` is ``"dc"`` (from the
         operating point) or ``"rest"`` (every state zero except the
         ``initial=`` values). Times may be floats in seconds or text
-        (``"4 ms"``).
+        (``"4 ms"``). ``options`` are the other settings of ``simulate
+        transient``, with ``_`` for ``-`` (``max_step=1e-6``,
+        ``voltage_tolerance=1e-6``); the netlist spelling
+        (``**{"max-step": 1e-6}``) works too. An unknown option is an
+        :class:`~mna.errors.InputError`.
         """
         from .analyses.transient import transient
 
         settings = {"until": _seconds(until, "until"), "step": _seconds(step, "step") if step is not None else None,
-                    "method": method, "start": start, **options}
+                    "method": method, "start": start}
+        for key, value in options.items():
+            name = key.replace("_", "-")
+            if name not in TRANSIENT_SETTINGS or name in settings:
+                known = ", ".join(k.replace("-", "_") for k in TRANSIENT_SETTINGS if k not in settings)
+                raise InputError(f"transient() got an unknown option {key!r}; the options are {known}")
+            settings[name] = value
         records = None
         if record is not None:
             records = []

@@ -213,3 +213,15 @@ def test_newton_agrees_between_dense_and_sparse_systems(monkeypatch):
         assert res.converged
         answers.append(res.x)
     assert np.allclose(answers[0], answers[1], rtol=1e-6, atol=1e-9)
+
+
+def test_transient_options_take_python_names_and_refuse_unknown_ones():
+    # max_step= (Python spelling) must cap the step as max-step= does in a
+    # netlist; a misspelt option must not be silently ignored.
+    c = mna.parse("voltage-source V1 a -> gnd 1 V\nresistor R1 a -> b 1 kohm\ncapacitor C1 b -> gnd 1 uF\n")
+    res = c.transient(until=10e-3, start="rest", max_step=1e-4)
+    assert res.statistics["largest_step_s"] <= 1e-4 * (1 + 1e-12)
+    same = c.transient(until=10e-3, start="rest", **{"max-step": 1e-4})
+    assert np.array_equal(res.time, same.time)
+    with pytest.raises(mna.InputError, match="max_stp"):
+        c.transient(until=10e-3, max_stp=1e-4)
