@@ -253,6 +253,20 @@ class System:
     def s(self, t: float) -> np.ndarray:
         return self.add_sources(np.zeros(self.n), t)
 
+    def rates(self, x: np.ndarray, t: float) -> np.ndarray:
+        """``d/dt q`` at a consistent point: ``-f(x, t)`` row by row (SI units per second).
+
+        The descriptor equation ``d/dt q(x) + f(x, t) = 0`` holds on every
+        row, so on the rows that carry charge or flux this is their rate of
+        change (a capacitor current, an inductor voltage); on purely
+        algebraic rows it is the equation's residual (zero).
+        """
+        f = self.add_sources(np.zeros(self.n), t)
+        f -= self.G @ x
+        if self.batches:
+            f -= self.evaluate_batches(x, t)[0]
+        return f
+
     # -- matrices ----------------------------------------------------------------
     def matrix_data(self, alpha: float, jf: list[np.ndarray] | None = None,
                     jq: list[np.ndarray] | None = None, extra_diag: np.ndarray | None = None,

@@ -225,3 +225,27 @@ def test_transient_options_take_python_names_and_refuse_unknown_ones():
     assert np.array_equal(res.time, same.time)
     with pytest.raises(mna.InputError, match="max_stp"):
         c.transient(until=10e-3, max_stp=1e-4)
+
+
+@pytest.mark.parametrize("start", ["dc", "rest"])
+def test_capacitor_across_a_stepping_source_then_rc_charging(start):
+    # At the edge C1, straight across the source, charges at once (an impulse
+    # of current); the rates after the edge must be those after the impulse,
+    # not the impulse itself, or the first step is cut below min-step. After
+    # it, b charges through R with tau = RC: v = V (1 - e^-(t-t0)/tau)
+    # (first-order step response, Alexander & Sadiku ch. 7).
+    V, R, C, t0 = 10.0, 1e3, 1e-6, 1e-3
+    c = mna.parse(
+        f"voltage-source V1 a -> gnd step(from=0 V, to={V} V, at={t0} s)\n"
+        "capacitor C1 a -> gnd 1 uF\n"
+        f"resistor R1 a -> b {R} ohm\n"
+        f"capacitor C2 b -> gnd {C} F\n"
+        "record v(b)\n"
+    )
+    res = c.transient(until=6e-3, method="trapezoidal", start=start, tolerance=1e-4)
+    t, v = res.time, res["v(b)"]
+    ref = np.where(t > t0, V * (1.0 - np.exp(-np.clip(t - t0, 0.0, None) / (R * C))), 0.0)
+    after = t > t0
+    # (at t0 itself both sides are recorded: 0 V before, still 0 V just after)
+    assert np.max(np.abs(v[after] - ref[after])) < 1e-3 * V
+    assert np.max(np.abs(v[~after])) < 1e-9

@@ -299,13 +299,35 @@ class _Run:
                     break
             self._affine.clear()
             return x
-        h0 = first * JUMP_FRACTION
+        h0 = self.start_h0 = first * JUMP_FRACTION
         x = np.zeros(system.n)
         for _ in range(8):  # settle comparator gates on the starting values
             x = self.jump(x, 0.0, h0, system.q_initial)
             if not self.update_events(0.0, x):
                 break
         return x
+
+    def rates_after_jump(self, x: np.ndarray, t: float, h0: float, q_before: np.ndarray,
+                         q_after: np.ndarray) -> np.ndarray | None:
+        """Rates of the charge and flux rows just after a jump solve (per second).
+
+        They come from the equations, ``-f`` at the consistent point the jump
+        solve found (the slope ``(q_after - q_before)/h0`` would amplify its
+        round-off 1e9 times). When a charge itself jumped (a capacitor
+        straight across a source that steps) the jump solve's currents are
+        the impulse that moved it; one more step of h0 gives the rates that
+        follow the impulse. None if that step does not converge.
+        """
+        rows = self.q_rows
+        moved = np.abs(q_after[rows] - q_before[rows])
+        limit = self.cfg.tolerance * np.maximum(self.q_scale, np.abs(q_after[rows])) + self.q_atol
+        if not (moved > limit).any():
+            return self.system.rates(x, t + h0)[rows]
+        try:
+            x2 = self.solve(x, t + 2 * h0, 1.0 / h0, -q_after / h0, refine=True)
+        except SingularMatrix:
+            return None
+        return None if x2 is None else self.system.rates(x2, t + 2 * h0)[rows]
 
     def jump(self, x: np.ndarray, t: float, h0: float, q: np.ndarray) -> np.ndarray:
         """Values just after t: a tiny backward-Euler step from the charges q.
@@ -385,6 +407,14 @@ class _Run:
         qdot0 = None
         restart_key = None
         h_smooth = h
+        if adaptive and self.q_rows.size:
+            # The first step is error-controlled from the start when the
+            # starting point is consistent just after t = 0: a start at rest
+            # (solved at 0+), or an operating point with no ideal edge at 0.
+            if cfg.start == "rest":
+                qdot0 = self.rates_after_jump(x, 0.0, self.start_h0, system.q_initial, q)
+            elif not system.jumps(-1.0, 0.0).size:
+                qdot0 = system.rates(x, 0.0)[self.q_rows]
 
         while t < until:
             if progress is not None and _time.perf_counter() > next_report:
@@ -525,9 +555,7 @@ class _Run:
                     rates = (qs_jump - qs) / h0
                     qs = qs_prev = qs_jump
                 if adaptive:
-                    # The jump solve is a backward-Euler step of h0 from the
-                    # charges before: its slope is the rate just after t.
-                    qdot0 = (q_jump[self.q_rows] - q[self.q_rows]) / h0
+                    qdot0 = self.rates_after_jump(x, t, h0, q, q_jump)
                 q = q_prev = q_jump
                 self.record(t, x, rates)
                 restart = True
