@@ -93,7 +93,7 @@ def run_case(n: int, until: float) -> None:
     circuit = mna.parse(ladder_netlist(n))
     circuit.transient(until=until / 100)  # compile outside the timing
     t_mna, res = best_of(lambda: circuit.transient(until=until, method="trapezoidal", tolerance=1e-3,
-                                                   start="rest", sample=times[1], max_step=until))
+                                                   start="rest", sample=times[1], **{"max-step": until}))
     err_mna = np.max(np.abs(res[f"v(n{n})"] - ref)) / scale
 
     print(f"\nRLC ladder, {n} sections ({2 * n} states), 0..{until * 1e6:.0f} us:")
@@ -182,7 +182,7 @@ def run_switched(periods: int = 100) -> None:
     circuit = mna.parse(SWITCHED)
     circuit.transient(until=1e-6)
     t_mna, res = best_of(lambda: circuit.transient(until=until, start="rest", method="trapezoidal",
-                                                   sample=times[1], max_step=until))
+                                                   sample=times[1], **{"max-step": until}))
     err_mna = np.max(np.abs(res["i(Lc)"] - ref)) / scale
     st = res.statistics
     print(f"\nCoil with freewheeling diode, 100 kHz PWM switch, {periods} periods "
@@ -227,7 +227,7 @@ def run_motor(until: float = 0.3) -> None:
     circuit = mna.parse(MOTOR)
     circuit.transient(until=until / 100)
     t_mna, res = best_of(lambda: circuit.transient(until=until, start="rest", method="trapezoidal",
-                                                   sample=times[1], max_step=until))
+                                                   sample=times[1], **{"max-step": until}))
     got = np.vstack([res["i(M1)"], res["w(rotor)"]])
     err_mna = float(np.max(np.abs(got - ref) / scale[:, None]))
     st = res.statistics
