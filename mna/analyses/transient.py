@@ -322,12 +322,12 @@ class _Run:
         moved = np.abs(q_after[rows] - q_before[rows])
         limit = self.cfg.tolerance * np.maximum(self.q_scale, np.abs(q_after[rows])) + self.q_atol
         if not (moved > limit).any():
-            return self.system.rates(x, t + h0)[rows]
+            return self.system.rates(x, t + h0)
         try:
             x2 = self.solve(x, t + 2 * h0, 1.0 / h0, -q_after / h0, refine=True)
         except SingularMatrix:
             return None
-        return None if x2 is None else self.system.rates(x2, t + 2 * h0)[rows]
+        return None if x2 is None else self.system.rates(x2, t + 2 * h0)
 
     def jump(self, x: np.ndarray, t: float, h0: float, q: np.ndarray) -> np.ndarray:
         """Values just after t: a tiny backward-Euler step from the charges q.
@@ -405,6 +405,11 @@ class _Run:
         # rows just after the discontinuity (for the first step's error
         # estimate), and the key under which that first step is remembered.
         qdot0 = None
+        rates0 = None
+        # The trapezoidal rule may take the first step after a restart itself
+        # when the rates there are exact (from -f after a jump solve): the
+        # derivative it inherits is then not left over from before the edge.
+        exact_rates = False
         restart_key = None
         h_smooth = h
         if adaptive and self.q_rows.size:
@@ -412,9 +417,13 @@ class _Run:
             # starting point is consistent just after t = 0: a start at rest
             # (solved at 0+), or an operating point with no ideal edge at 0.
             if cfg.start == "rest":
-                qdot0 = self.rates_after_jump(x, 0.0, self.start_h0, system.q_initial, q)
+                rates0 = self.rates_after_jump(x, 0.0, self.start_h0, system.q_initial, q)
             elif not system.jumps(-1.0, 0.0).size:
-                qdot0 = system.rates(x, 0.0)[self.q_rows]
+                rates0 = system.rates(x, 0.0)
+            if rates0 is not None:
+                qdot0 = rates0[self.q_rows]
+                if uses_qdot:
+                    qdot, exact_rates = rates0, True
 
         while t < until:
             if progress is not None and _time.perf_counter() > next_report:
@@ -445,7 +454,12 @@ class _Run:
                         h_try = _ladder(h_try, until)
                     t_new, landing = t + h_try, False
             # -- solve
-            alpha, b0, b1, g0 = method.coefficients(h_try, h_prev if since_restart >= restart_steps else None)
+            if since_restart >= restart_steps:
+                alpha, b0, b1, g0 = method.coefficients(h_try, h_prev)
+            elif exact_rates:
+                alpha, b0, b1, g0 = method.coefficients(h_try, h_prev or h_try)
+            else:
+                alpha, b0, b1, g0 = method.coefficients(h_try, None)
             history = b0 * q
             if b1:
                 history = history + b1 * q_prev
@@ -486,10 +500,15 @@ class _Run:
             h_next = h
             if not fixed and self.q_rows.size:
                 err = self.local_error(hist_t, hist_q, t_new, q_new[self.q_rows], h_try, h_prev, order,
-                                       qdot0 if since_restart == 0 else None)
+                                       qdot0 if since_restart <= 1 else None,
+                                       confluent=exact_rates and since_restart == 1)
                 if err is not None:
-                    # (the restart steps are backward Euler: first order)
-                    step_order = order if since_restart >= restart_steps else 1
+                    # (backward-Euler restart steps, and the first step from
+                    # exact rates, have first-order estimates)
+                    if since_restart >= restart_steps or (exact_rates and since_restart >= 1):
+                        step_order = order
+                    else:
+                        step_order = 1
                     factor = SAFETY * (max(err, 1e-10) ** (-1.0 / (step_order + 1)))
                     if err > 1.0:
                         self.stats["rejected"] += 1
@@ -555,7 +574,8 @@ class _Run:
                     rates = (qs_jump - qs) / h0
                     qs = qs_prev = qs_jump
                 if adaptive:
-                    qdot0 = self.rates_after_jump(x, t, h0, q, q_jump)
+                    rates0 = self.rates_after_jump(x, t, h0, q, q_jump)
+                    qdot0 = None if rates0 is None else rates0[self.q_rows]
                 q = q_prev = q_jump
                 self.record(t, x, rates)
                 restart = True
@@ -563,6 +583,9 @@ class _Run:
                 h_prev = None
                 since_restart = 0
                 qdot = np.zeros(system.n)
+                exact_rates = qdot0 is not None and uses_qdot
+                if exact_rates:
+                    qdot = rates0
                 if adaptive:
                     hist_t, hist_q = [t], [q[self.q_rows]]
                 if not fixed:
@@ -582,19 +605,29 @@ class _Run:
             if t >= until * (1 - 1e-14):
                 break
 
-    def local_error(self, hist_t, hist_q, t_new, q_new, h, h_prev, order, qdot0=None) -> float | None:
+    def local_error(self, hist_t, hist_q, t_new, q_new, h, h_prev, order, qdot0=None,
+                    confluent: bool = False) -> float | None:
         """Largest local truncation error over the charge and flux rows, in units of their tolerance.
 
-        ``qdot0``: the rates at the last point (after a jump solve), for the
-        first step after a restart: with them the backward-Euler error
-        ``h^2 q''/2`` is ``(q1 - q0) - h*qdot0`` (a confluent divided
-        difference, Hermite data at the restart point).
+        ``qdot0``: the rates at the restart point (after a jump solve). On
+        the first step after a restart they give the backward-Euler error
+        ``h^2 q''/2 = (q1 - q0) - h*qdot0`` (a confluent divided difference,
+        Hermite data at the restart point); an upper bound for a trapezoidal
+        first step. With ``confluent`` (a trapezoidal second step from exact
+        rates) the third divided difference ``q[t0, t0, t1, t2]`` gives the
+        trapezoidal error, h^3/12 times the third derivative, at once.
         """
         ts = hist_t + [t_new]
         qs = hist_q + [q_new]
         need = order + 2
         if len(ts) == 2 and qdot0 is not None:
             lte = (q_new - hist_q[-1]) - h * qdot0
+        elif len(ts) == 3 and qdot0 is not None and confluent:
+            (t0, t1, t2), (q0, q1, q2) = ts, qs
+            d01 = (q1 - q0) / (t1 - t0)
+            d001 = (d01 - qdot0) / (t1 - t0)
+            d012 = ((q2 - q1) / (t2 - t1) - d01) / (t2 - t0)
+            lte = 0.5 * h ** 3 * (d012 - d001) / (t2 - t0)
         elif len(ts) < 3 or h_prev is None:
             return None
         elif len(ts) < need:
