@@ -74,6 +74,10 @@ MAX_GROWTH = 4.0
 SAFETY = 0.85
 LADDER = 2  # step sizes are rounded down to 2**(k/LADDER) * until
 GROWTH_THRESHOLD = 1.5  # a step grows only if the error allows at least this factor
+#: A step this much shorter than the gap to the next corner is stretched to
+#: land on it (the error test then judges the longer step), rather than
+#: split into two halves.
+LANDING_STRETCH = 1.1
 
 
 def time_grid(until: float, step: float, corners: np.ndarray) -> np.ndarray:
@@ -445,7 +449,7 @@ class _Run:
                 if since_restart > 0:
                     h_smooth = h_try
                 gap = next_corner - t
-                if h_try >= gap * (1 - 1e-9):
+                if h_try * LANDING_STRETCH >= gap:
                     h_try, t_new, landing = gap, next_corner, True
                 else:
                     if h_try > 0.5 * gap:
