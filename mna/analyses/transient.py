@@ -345,7 +345,11 @@ class _Run:
             x_new = None
             remembered = self.jump_memory.get(self.version) if not self.pwl else None
             if remembered is not None:
-                x_new = self.solve(remembered, t + h0, 1.0 / h0, -q / h0, max_iterations=JUMP_GUESS_ITERATIONS)
+                try:
+                    x_new = self.solve(remembered, t + h0, 1.0 / h0, -q / h0,
+                                       max_iterations=JUMP_GUESS_ITERATIONS)
+                except SingularMatrix:  # a guess that leads nowhere: start over from x
+                    x_new = None
             if x_new is None:
                 x_new = self.solve(x, t + h0, 1.0 / h0, -q / h0, refine=True)  # sources just after t
             if x_new is not None and not self.pwl:
