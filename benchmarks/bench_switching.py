@@ -24,6 +24,7 @@ import scipy.sparse.linalg as spla
 
 import mna
 from mna.analyses.common import prepare
+from mna.runstate import DiscreteStates
 
 F_PWM = 100e3
 
@@ -40,7 +41,8 @@ record v(d), i(Lc), i(D1)
 def bare_loop(circuit, h: float, steps: int) -> float:
     """Seconds for ``steps`` rounds of one splu and one solve of the circuit's matrix."""
     system, _ = prepare(circuit)
-    f_nl, q_nl, jf, jq = system.evaluate_batches(np.zeros(system.n), 0.0)
+    states = DiscreteStates(system, 0.0)
+    f_nl, q_nl, jf, jq = system.evaluate_batches(np.zeros(system.n), 0.0, states)
     A = system.matrix(system.matrix_data(1.0 / h, jf, jq)).tocsc()
     b = system.s(0.0)
     t0 = time.perf_counter()

@@ -56,7 +56,14 @@ class DenseLU:
 
 
 class Factorizer:
-    """Factors the system matrix, caching by key; counts work for statistics."""
+    """Factors the system matrix, caching by key; counts work for statistics.
+
+    One factorizer belongs to one run (it is never kept on the system). A
+    key given to :meth:`factor` must name everything the matrix depends on
+    besides the system itself: the integration coefficient and the discrete
+    states (:meth:`mna.runstate.DiscreteStates.key`). Without a key the
+    last matrix's values are compared instead.
+    """
 
     def __init__(self, system: System, cache_size: int = 8):
         self.system = system
@@ -222,6 +229,7 @@ def newton(
     source_scale: float = 1.0,
     damping: bool = False,
     hold: tuple[np.ndarray, np.ndarray] | None = None,
+    states=None,
 ) -> NewtonResult:
     """Solve ``alpha*q(x) + history + f(x, t) = 0`` from the guess ``x0``.
 
@@ -229,8 +237,9 @@ def newton(
     step); ``source_scale`` multiplies every independent source (source
     stepping); ``hold`` = (rows, values) replaces those rows by
     ``x[row] = value`` (the DC hold, see
-    :meth:`mna.system.Stamper.hold_at_dc`). Raises
-    :class:`SingularMatrix`.
+    :meth:`mna.system.Stamper.hold_at_dc`); ``states`` are the run's
+    discrete states (:class:`mna.runstate.DiscreteStates`; needed when a
+    batch has any). Raises :class:`SingularMatrix`.
 
     Safeguards, in the order they act on each iteration:
 
@@ -256,7 +265,7 @@ def newton(
     if source_scale != 1.0:
         s *= source_scale
     if system.is_piecewise_linear:
-        f0, q0, jf, jq = system.affine_parts(t)
+        f0, q0, jf, jq = system.affine_parts(t, states)
         data = system.matrix_data(alpha, jf, jq, extra_diag)
         rhs = s - history if history is not None else s
         if f0 is not None:
@@ -282,7 +291,7 @@ def newton(
 
     def linearise(x: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
         """Residual, matrix (dense array or CSC data), and the nonlinear f and q at ``x``."""
-        f_nl, q_nl, jf, jq = system.evaluate_batches(x, t)
+        f_nl, q_nl, jf, jq = system.evaluate_batches(x, t, states)
         residual = linear @ x
         residual += f_nl
         residual += constant

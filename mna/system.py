@@ -20,7 +20,7 @@ from __future__ import annotations
 
 from collections import defaultdict
 from dataclasses import dataclass, field
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Sequence
 
 import numpy as np
 import scipy.sparse as sp
@@ -167,9 +167,16 @@ class BatchSlot:
     jq_pos: np.ndarray
 
 
-@dataclass
+@dataclass(frozen=True)
 class System:
-    """A compiled circuit, ready for the analyses. Built by :func:`compile_circuit`."""
+    """A compiled circuit, ready for the analyses. Built by :func:`compile_circuit`.
+
+    Immutable: nothing a run changes is kept here (switch states live in a
+    :class:`~mna.runstate.DiscreteStates`, factorisations in a
+    :class:`~mna.solver.Factorizer`, both made per run). The only entries
+    added after construction are derived arrays computed on first use
+    (``dense_flat``, the batch plan...), the same on every computation.
+    """
 
     circuit: "Circuit"
     names: list[str]
@@ -220,14 +227,15 @@ class System:
                 slot.batch for slot in self.batches if type(slot.batch).limit is not NonlinearBatch.limit]
         return found
 
-    def affine_parts(self, t: float):
+    def affine_parts(self, t: float, states: "Sequence | None" = None):
         """For a piecewise-linear system: f and q offsets at x = 0 and the batch Jacobians.
 
         Valid until the next event. Returns ``(f0, q0, jf, jq)``.
+        ``states``: the run's discrete states, as for :meth:`evaluate_batches`.
         """
         if not self.batches:
             return None, None, None, None
-        return self.evaluate_batches(np.zeros(self.n), t)
+        return self.evaluate_batches(np.zeros(self.n), t, states)
 
     # -- sources -----------------------------------------------------------------
     def source_values(self, t: float) -> np.ndarray:
@@ -253,7 +261,7 @@ class System:
     def s(self, t: float) -> np.ndarray:
         return self.add_sources(np.zeros(self.n), t)
 
-    def rates(self, x: np.ndarray, t: float) -> np.ndarray:
+    def rates(self, x: np.ndarray, t: float, states: "Sequence | None" = None) -> np.ndarray:
         """``d/dt q`` at a consistent point: ``-f(x, t)`` row by row (SI units per second).
 
         The descriptor equation ``d/dt q(x) + f(x, t) = 0`` holds on every
@@ -264,7 +272,7 @@ class System:
         f = self.add_sources(np.zeros(self.n), t)
         f -= self.G @ x
         if self.batches:
-            f -= self.evaluate_batches(x, t)[0]
+            f -= self.evaluate_batches(x, t, states)[0]
         return f
 
     # -- matrices ----------------------------------------------------------------
@@ -376,17 +384,24 @@ class System:
         """Whether any batch contributes to q (a saturating choke's flux)."""
         return any(p.q_rows.size for p in self._batch_plan)
 
-    def evaluate_batches(self, x: np.ndarray, t: float):
+    def evaluate_batches(self, x: np.ndarray, t: float, states: "Sequence | None" = None):
         """Nonlinear f and q (as full vectors) and the Jacobian values per batch.
 
-        When no batch has charges, q is a shared read-only zero vector.
+        ``states`` holds the run's state object of each batch, in the order
+        of ``self.batches`` (see :class:`mna.runstate.DiscreteStates`); it
+        may be None when no batch has a state. When no batch has charges, q
+        is a shared read-only zero vector.
         """
         n = self.n
         f = np.zeros(n)
         q = None
         jf, jq = [], []
-        for plan in self._batch_plan:
-            fv, jfv, qv, jqv = plan.batch.evaluate(x, t)
+        for k, plan in enumerate(self._batch_plan):
+            state = states[k] if states is not None else None
+            if state is None:
+                fv, jfv, qv, jqv = plan.batch.evaluate(x, t)
+            else:
+                fv, jfv, qv, jqv = plan.batch.evaluate(x, t, state)
             if plan.f_rows.size:
                 if plan.f_unique:
                     f[plan.f_rows] += fv
@@ -410,11 +425,11 @@ class System:
             z.flags.writeable = False
         return z
 
-    def charges(self, x: np.ndarray, t: float = 0.0) -> np.ndarray:
+    def charges(self, x: np.ndarray, t: float = 0.0, states: "Sequence | None" = None) -> np.ndarray:
         """q(x): linear charges plus any nonlinear ones."""
         q = self.C_operator @ x
         if self.has_nonlinear_charges:
-            q += self.evaluate_batches(x, t)[1]
+            q += self.evaluate_batches(x, t, states)[1]
         return q
 
     def corners(self, start: float, stop: float) -> np.ndarray:
@@ -585,17 +600,19 @@ class Probe:
 
     ``node(name)`` gives a node potential over time, ``unknown(element,
     local)`` an element's own unknown, ``rate(state)`` the rate of change of
-    a declared state (a capacitor's current). Built twice: once in planning
+    a declared state (a capacitor's current), ``state_log(element)`` the log
+    of an element's discrete state (a switch's open/closed). Built twice: once in planning
     mode, to learn which unknowns and states a run must keep, then over the
     recorded arrays.
     """
 
     def __init__(self, system: System, time: np.ndarray, x: dict[int, np.ndarray] | None = None,
-                 rates: dict[int, np.ndarray] | None = None):
+                 rates: dict[int, np.ndarray] | None = None, discrete=None):
         self.system = system
         self.time = time
         self._x = x
         self._rates = rates
+        self._discrete = discrete
         self.planning = x is None
         self.need_x: set[int] = set()
         self.need_states: set[int] = set()
@@ -613,6 +630,13 @@ class Probe:
 
     def unknown(self, element: Element, local: str) -> np.ndarray:
         return self.x(self.system.own_index[(element.name, local)])
+
+    def state_log(self, element: Element) -> tuple[np.ndarray, np.ndarray]:
+        """Times and values of an element's discrete state over the run (a
+        switch's closed = 1.0), from the run's :class:`~mna.runstate.DiscreteStates`."""
+        if self.planning or self._discrete is None:
+            return np.empty(0), np.empty(0)
+        return self._discrete.log(element)
 
     def rate(self, state: int) -> np.ndarray:
         if self.planning:

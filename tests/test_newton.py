@@ -31,6 +31,7 @@ from mna.analyses.dc import gmin_stepping, source_stepping
 from mna.cli import main as cli_main
 from mna.elements import CONDUCTOR
 from mna.elements.registry import _extra
+from mna.runstate import DiscreteStates
 from mna.solver import Factorizer, newton
 from mna.units import DIMENSIONLESS, VOLT
 
@@ -158,7 +159,7 @@ def test_newton_does_not_refactor_an_unchanged_matrix():
     fz = Factorizer(system)
     x0 = np.zeros(system.n)
     x0[system.node_index["s"]] = 12.0
-    result = newton(system, fz, x0, 0.0, 0.0, None)
+    result = newton(system, fz, x0, 0.0, 0.0, None, states=DiscreteStates(system, 0.0))
     assert result.converged and result.iterations >= 2
     assert fz.factorizations == 1
 

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+import threading
 from typing import TYPE_CHECKING, Sequence
 
 import numpy as np
@@ -19,18 +20,31 @@ if TYPE_CHECKING:  # pragma: no cover
 LEAK = 1e-12  # S (or N*m*s/rad): DC leak on nodes with no DC path
 
 
+#: Compilation stamps the elements (a switch realises its gate), so two
+#: threads running one circuit compile it once, in turn.
+_COMPILE_LOCK = threading.RLock()
+
+
 def prepare(circuit: "Circuit") -> tuple[System, TopologyReport]:
-    """Topology checks, then compilation. Cached until the circuit changes."""
+    """Topology checks, then compilation. Cached until the circuit changes.
+
+    The compiled :class:`~mna.system.System` is immutable, so the cached one
+    serves every run of the circuit, from any thread.
+    """
     key = (len(circuit.elements), tuple(circuit.elements))
     cached = getattr(circuit, "_compiled", None)
     if cached is not None and cached[0] == key:
         return cached[1], cached[2]
-    report = check_topology(circuit)
-    system = compile_circuit(circuit)
-    circuit._compiled = (key, system, report)
-    for w in report.warnings:
-        if w not in circuit.warnings:
-            circuit.warnings.append(w)
+    with _COMPILE_LOCK:
+        cached = getattr(circuit, "_compiled", None)
+        if cached is not None and cached[0] == key:
+            return cached[1], cached[2]
+        report = check_topology(circuit)
+        system = compile_circuit(circuit)
+        for w in report.warnings:
+            if w not in circuit.warnings:
+                circuit.warnings.append(w)
+        circuit._compiled = (key, system, report)
     return system, report
 
 

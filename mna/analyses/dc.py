@@ -16,6 +16,7 @@ import numpy as np
 
 from ..errors import SimulationError
 from ..results import OperatingPoint
+from ..runstate import DiscreteStates
 from ..solver import Factorizer, SingularMatrix, newton, raise_singular
 from ..system import Probe, System
 from .common import compute_signal, dc_leak, default_signals, prepare, unit_label
@@ -40,7 +41,8 @@ MAX_EVENT_ROUNDS = 16
 
 
 def solve_dc(system: System, factorizer: Factorizer, leak: np.ndarray | None, t: float = 0.0,
-             guess: np.ndarray | None = None, info: dict | None = None) -> tuple[np.ndarray, int]:
+             guess: np.ndarray | None = None, info: dict | None = None,
+             discrete: DiscreteStates | None = None) -> tuple[np.ndarray, int]:
     """x at the operating point and the Newton iterations it took.
 
     The point is found by the first of these that converges (``info``, when
@@ -61,11 +63,13 @@ def solve_dc(system: System, factorizer: Factorizer, leak: np.ndarray | None, t:
     unknowns that did not settle.
     """
     x = np.zeros(system.n) if guess is None else np.array(guess, dtype=float)
+    if discrete is None:
+        discrete = DiscreteStates(system, t)
     total = 0
     for _ in range(MAX_EVENT_ROUNDS):
-        x, its, method = _solve_point(system, factorizer, leak, t, x)
+        x, its, method = _solve_point(system, factorizer, leak, t, x, discrete)
         total += its
-        changed = [slot.batch.update_events(t, x) for slot in system.batches]
+        changed = discrete.changed_batches(t, x)
         if not any(changed):
             if info is not None:
                 info["dc_method"] = method
@@ -82,7 +86,7 @@ def solve_dc(system: System, factorizer: Factorizer, leak: np.ndarray | None, t:
 
 
 def _solve_point(system: System, factorizer: Factorizer, leak: np.ndarray | None, t: float,
-                 x0: np.ndarray) -> tuple[np.ndarray, int, str]:
+                 x0: np.ndarray, discrete: DiscreteStates) -> tuple[np.ndarray, int, str]:
     """One operating point with the current switch states: (x, iterations, method)."""
     total = 0
     first_failure: tuple[str, ...] = ()
@@ -90,7 +94,7 @@ def _solve_point(system: System, factorizer: Factorizer, leak: np.ndarray | None
     for method, damping in (("newton", False), ("damped newton", True)):
         try:
             result = newton(system, factorizer, x0, t, 0.0, None, extra_diag=leak, max_iterations=100,
-                            damping=damping, hold=system.dc_hold)
+                            damping=damping, hold=system.dc_hold, states=discrete)
         except SingularMatrix as exc:
             if system.is_linear:
                 _raise_dc_singular(exc, t)
@@ -104,7 +108,7 @@ def _solve_point(system: System, factorizer: Factorizer, leak: np.ndarray | None
             break
     for method, ladder in (("gmin stepping", gmin_stepping), ("source stepping", source_stepping)):
         try:
-            x, its = ladder(system, factorizer, leak, t, x0)
+            x, its = ladder(system, factorizer, leak, t, x0, discrete)
         except LadderFailed as exc:
             total += exc.iterations
             continue
@@ -141,16 +145,16 @@ def _node_diag(system: System, value: float, leak: np.ndarray | None) -> np.ndar
     return diag
 
 
-def _attempt(system, factorizer, x, t, leak_diag, scale=1.0):
+def _attempt(system, factorizer, x, t, leak_diag, scale=1.0, discrete=None):
     try:
         return newton(system, factorizer, x, t, 0.0, None, extra_diag=leak_diag, max_iterations=100,
-                      source_scale=scale, damping=True, hold=system.dc_hold)
+                      source_scale=scale, damping=True, hold=system.dc_hold, states=discrete)
     except SingularMatrix:
         return None
 
 
 def gmin_stepping(system: System, factorizer: Factorizer, leak: np.ndarray | None, t: float,
-                  x0: np.ndarray) -> tuple[np.ndarray, int]:
+                  x0: np.ndarray, discrete: DiscreteStates | None = None) -> tuple[np.ndarray, int]:
     """Step a node-to-reference conductance down to nothing; (x, Newton iterations).
 
     Raises :class:`LadderFailed` when even a very small reduction fails.
@@ -159,7 +163,7 @@ def gmin_stepping(system: System, factorizer: Factorizer, leak: np.ndarray | Non
     x = x0
     gmin = GMIN_START
     factor = GMIN_FACTOR
-    result = _attempt(system, factorizer, x, t, _node_diag(system, gmin, leak))
+    result = _attempt(system, factorizer, x, t, _node_diag(system, gmin, leak), discrete=discrete)
     if result is None or not result.converged:
         raise LadderFailed(result.iterations if result else 0)
     total += result.iterations
@@ -169,7 +173,7 @@ def gmin_stepping(system: System, factorizer: Factorizer, leak: np.ndarray | Non
             return x, total
         trial = gmin / factor if gmin / factor >= GMIN_END else 0.0
         diag = _node_diag(system, trial, leak) if trial else leak
-        result = _attempt(system, factorizer, x, t, diag)
+        result = _attempt(system, factorizer, x, t, diag, discrete=discrete)
         total += result.iterations if result else 0
         if result is not None and result.converged:
             x, gmin = result.x, trial
@@ -184,7 +188,7 @@ def gmin_stepping(system: System, factorizer: Factorizer, leak: np.ndarray | Non
 
 
 def source_stepping(system: System, factorizer: Factorizer, leak: np.ndarray | None, t: float,
-                    x0: np.ndarray) -> tuple[np.ndarray, int]:
+                    x0: np.ndarray, discrete: DiscreteStates | None = None) -> tuple[np.ndarray, int]:
     """Raise every source from 0 to its full value; (x, Newton iterations).
 
     ``x0`` is ignored: the ladder starts from the all-zero point, the
@@ -198,7 +202,7 @@ def source_stepping(system: System, factorizer: Factorizer, leak: np.ndarray | N
         if done >= 1.0:
             return x, total
         target = min(1.0, done + step)
-        result = _attempt(system, factorizer, x, t, leak, scale=target)
+        result = _attempt(system, factorizer, x, t, leak, scale=target, discrete=discrete)
         total += result.iterations if result else 0
         if result is not None and result.converged:
             x, done = result.x, target
@@ -221,8 +225,9 @@ def operating_point(circuit: "Circuit", signals: Sequence["SignalRef"] = ()) -> 
     system, report = prepare(circuit)
     factorizer = Factorizer(system)
     info: dict = {}
-    x, iterations = solve_dc(system, factorizer, dc_leak(system, report), info=info)
-    probe = Probe(system, np.zeros(1), x={i: x[i:i + 1] for i in range(system.n)},
+    discrete = DiscreteStates(system, 0.0)
+    x, iterations = solve_dc(system, factorizer, dc_leak(system, report), info=info, discrete=discrete)
+    probe = Probe(system, np.zeros(1), x={i: x[i:i + 1] for i in range(system.n)}, discrete=discrete,
                   rates={k: np.zeros(1) for k in range(system.Cs.shape[0])})
     labels = {r.label: r for r in default_signals(circuit)}
     labels.update({r.label: r for r in circuit.records})

@@ -46,6 +46,7 @@ from ..circuit import SignalRef
 from ..errors import InputError, SimulationError
 from ..integrate import IntegrationMethod, get_method
 from ..results import Waveforms
+from ..runstate import DiscreteStates
 from ..solver import Factorizer, SingularMatrix, newton, raise_singular
 from ..system import Probe, System
 from ..units import AMPERE, VOLT
@@ -184,10 +185,11 @@ class _Run:
         self.rec = _Recorder(len(need_x), len(need_states), capacity)
         self.stats = {"accepted": 0, "rejected": 0, "newton_iterations": 0, "events": 0,
                       "retries": 0}
-        self.event_batches = [s.batch for s in system.batches if s.batch.piecewise_linear]
+        #: The switch states of this run (never kept on the system or its batches).
+        self.discrete = DiscreteStates(system, 0.0)
+        self.event_batches = self.discrete.any
         self.pwl = system.is_piecewise_linear
-        self._changes = 0
-        self.version = self._state_key()
+        self.version = self.discrete.key()
         self._affine: dict = {}
         # Local-error control on the rows of q that hold charge or flux.
         absC = abs(system.C)
@@ -222,7 +224,7 @@ class _Run:
             lu = self.factorizer._cache.get(key)
             affine = self._affine.get(self.version)
             if affine is None:
-                affine = system.affine_parts(t)
+                affine = system.affine_parts(t, self.discrete)
                 if len(self._affine) >= 16:
                     self._affine.pop(next(iter(self._affine)))
                 self._affine[self.version] = affine
@@ -246,44 +248,28 @@ class _Run:
             if not np.isfinite(x).all():  # a numerically singular matrix
                 raise SingularMatrix(("(the circuit equations are numerically singular at this step)",))
             return x
-        res = newton(system, self.factorizer, x_guess, t, alpha, history, max_iterations=max_iterations)
+        res = newton(system, self.factorizer, x_guess, t, alpha, history, max_iterations=max_iterations,
+                     states=self.discrete)
         self.stats["newton_iterations"] += res.iterations
         self._worst = res.worst
         return res.x if res.converged else None
 
     def charges(self, x: np.ndarray, t: float) -> np.ndarray:
-        return self.system.C @ x if not self.system.batches else self.system.charges(x, t)
+        return self.system.C @ x if not self.system.batches else self.system.charges(x, t, self.discrete)
 
     # -- events -------------------------------------------------------------------
     def update_events(self, t: float, x: np.ndarray) -> bool:
-        changed = False
-        for b in self.event_batches:
-            changed |= bool(b.update_events(t, x))
+        changed = self.discrete.update(t, x)
         if changed:
-            self._changes += 1
-            self.version = self._state_key()
+            # What the matrix depends on besides alpha: the discrete states,
+            # so a state seen before (the same half of a PWM period) reuses
+            # its factorisation.
+            self.version = self.discrete.key()
             self.stats["events"] += 1
         return changed
 
-    def _state_key(self):
-        """What the matrix depends on besides alpha: the discrete states of the
-        switched elements, so a state seen before (the same half of a PWM
-        period) reuses its factorisation."""
-        keys = []
-        for b in self.event_batches:
-            k = b.state_key()
-            if k is None:
-                return ("change", self._changes)
-            keys.append(k)
-        return tuple(keys)
-
     def event_time(self, t0, x0, t1, x1) -> float | None:
-        best = None
-        for b in self.event_batches:
-            te = b.event_time(t0, x0, t1, x1)
-            if te is not None and t0 < te < t1 and (best is None or te < best):
-                best = te
-        return best
+        return self.discrete.event_time(t0, x0, t1, x1)
 
     # -- the loop -------------------------------------------------------------------
     def record(self, t: float, x: np.ndarray, rates: np.ndarray) -> None:
@@ -297,7 +283,8 @@ class _Run:
             self.factorizer.forget()
             for _ in range(8):  # settle comparator gates on the operating point
                 self._affine.clear()
-                x, its = solve_dc(system, self.factorizer, leak, t=0.0)
+                x, its = solve_dc(system, self.factorizer, leak, t=0.0, discrete=self.discrete)
+                self.version = self.discrete.key()
                 self.stats["newton_iterations"] += its
                 if not self.update_events(0.0, x):
                     break
@@ -326,12 +313,12 @@ class _Run:
         moved = np.abs(q_after[rows] - q_before[rows])
         limit = self.cfg.tolerance * np.maximum(self.q_scale, np.abs(q_after[rows])) + self.q_atol
         if not (moved > limit).any():
-            return self.system.rates(x, t + h0)
+            return self.system.rates(x, t + h0, self.discrete)
         try:
             x2 = self.solve(x, t + 2 * h0, 1.0 / h0, -q_after / h0, refine=True)
         except SingularMatrix:
             return None
-        return None if x2 is None else self.system.rates(x2, t + 2 * h0)
+        return None if x2 is None else self.system.rates(x2, t + 2 * h0, self.discrete)
 
     def jump(self, x: np.ndarray, t: float, h0: float, q: np.ndarray) -> np.ndarray:
         """Values just after t: a tiny backward-Euler step from the charges q.
@@ -427,7 +414,7 @@ class _Run:
             if cfg.start == "rest":
                 rates0 = self.rates_after_jump(x, 0.0, self.start_h0, system.q_initial, q)
             elif not system.jumps(-1.0, 0.0).size:
-                rates0 = system.rates(x, 0.0)
+                rates0 = system.rates(x, 0.0, self.discrete)
             if rates0 is not None:
                 qdot0 = rates0[self.q_rows]
                 if uses_qdot:
@@ -706,6 +693,7 @@ def _finish(circuit, system: System, refs, run: _Run, started, cfg: _Settings, s
         time,
         x={int(idx): rec.x[:n, j] for j, idx in enumerate(run.need_x)},
         rates={sid: rec.r[:n, j] for j, sid in enumerate(run.need_states)},
+        discrete=run.discrete,
     )
     # (+ 0.0 turns -0.0 into 0.0 so reports never show "-0")
     signals = {ref.label: compute_signal(ref, circuit, probe) + 0.0 for ref in refs}

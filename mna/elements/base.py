@@ -246,19 +246,32 @@ class NonlinearBatch:
        in x between events (a switch: ``f = g(state) * v``): the engine then
        solves each step with one factorisation reused until the next event,
        instead of Newton iterations.
-    7. ``update_events(t, x)`` is called after every accepted time point
-       (and once at t = 0); it updates discrete states (a switch's
-       open/closed) and returns True when any changed. The engine then
+    7. ``new_state(t)`` returns a fresh object holding the discrete states
+       of one run as they are at time ``t`` (a switch's open/closed, its
+       log), or None for a kind without any. The batch itself never changes
+       after compilation: every method below that needs the states takes
+       this object as its ``state`` argument, so two runs of one compiled
+       system (in turn or in two threads) cannot see each other's states.
+       ``evaluate`` is called as ``evaluate(x, t, state)`` when the kind has
+       a state and as ``evaluate(x, t)`` when ``new_state`` returns None.
+    8. ``update_events(t, x, state)`` is called after every accepted time
+       point (and once at t = 0); it updates the discrete states held in
+       ``state`` and returns True when any changed. The engine then
        refactors, records a second sample at the same time with the new
-       state, and restarts the integration method with a first-order step.
-    8. ``event_time(t0, x0, t1, x1)`` returns the time in (t0, t1] at which
-       a state would change (a comparator gate crossing its threshold,
-       located by interpolation), or None. The engine shortens the step to
-       land on it. Time-driven changes (a schedule, a PWM gate) are
-       ``corners`` instead, which the engine lands on exactly.
-    9. ``state_key()`` returns a hashable summary of the discrete states
-       (or None): factorisations are cached under it, so the two halves of
-       a PWM period each factor once for the whole run.
+       state, and restarts the integration method.
+    9. ``event_time(t0, x0, t1, x1, state)`` returns the time in (t0, t1] at
+       which a state would change (a comparator gate crossing its
+       threshold, located by interpolation), or None. The engine shortens
+       the step to land on it. Time-driven changes (a schedule, a PWM gate)
+       are ``corners`` instead, which the engine lands on exactly.
+    10. ``state_key(state)`` returns a hashable summary of the discrete
+        states (or None): factorisations are cached under it, so the two
+        halves of a PWM period each factor once for the whole run.
+    11. ``snapshot(state)`` returns an immutable copy of the discrete states
+        (for :class:`mna.results.RunEnd`), and ``restore(snapshot, t)`` a
+        fresh state object from it (a run that continues from another).
+    12. ``state_log(state, element)`` returns ``(times, values)``: the log of
+        an element's discrete state over the run (for its outputs).
     """
 
     piecewise_linear: ClassVar[bool] = False
@@ -279,16 +292,32 @@ class NonlinearBatch:
     def limit(self, x_new: np.ndarray, x_old: np.ndarray) -> np.ndarray:
         return x_new
 
-    def update_events(self, t: float, x: np.ndarray) -> bool:
-        return False
-
-    def event_time(self, t0: float, x0: np.ndarray, t1: float, x1: np.ndarray) -> float | None:
+    def new_state(self, t: float = 0.0):
+        """The discrete states of a new run at time ``t``; None for a kind without any."""
         return None
 
-    def state_key(self):
+    def update_events(self, t: float, x: np.ndarray, state=None) -> bool:
+        return False
+
+    def event_time(self, t0: float, x0: np.ndarray, t1: float, x1: np.ndarray, state=None) -> float | None:
+        return None
+
+    def state_key(self, state=None):
         """A hashable summary of the discrete states (``state.tobytes()``), or
         None. With it the engine reuses the factorisation of a state seen before."""
         return None
+
+    def snapshot(self, state=None):
+        """An immutable copy of the discrete states in ``state`` (None if none)."""
+        return None
+
+    def restore(self, snapshot, t: float):
+        """A new state object from :meth:`snapshot`'s result, for a run starting at ``t``."""
+        return self.new_state(t)
+
+    def state_log(self, state, element: Element) -> tuple[np.ndarray, np.ndarray]:
+        """Times and values of ``element``'s discrete state over a run."""
+        return np.empty(0), np.empty(0)
 
     def corners(self, start: float, stop: float) -> np.ndarray:
         return np.empty(0)

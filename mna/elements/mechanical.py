@@ -108,8 +108,9 @@ class WaveformSet:
     def __call__(self, t: float) -> np.ndarray:
         if self._constant is not None:
             return self._constant
-        if self._last is not None and self._last[0] == t:  # Newton iterates at one time
-            return self._last[1]
+        last = self._last  # (read once: another thread's run may replace it meanwhile)
+        if last is not None and last[0] == t:  # Newton iterates at one time
+            return last[1]
         values = np.concatenate([np.asarray(ev(t), dtype=float) for ev in self._evaluators])[self._order]
         self._last = (t, values)
         return values

@@ -42,8 +42,9 @@ gate starts open and then takes the state its comparison gives at the
 operating point (inside a hysteresis band it stays open).
 
 Results: ``v i p`` as any two-terminal element, and ``state`` (1 closed,
-0 open). The switch's state history is kept on its batch during a run and
-read back by :meth:`Switch.output`.
+0 open). The states of a run, and their log, live in the run's
+:class:`SwitchState` (never on the batch or the element); the probe hands
+the log to :meth:`Switch.output`.
 """
 
 from __future__ import annotations
@@ -341,7 +342,6 @@ class Switch(TwoTerminal):
             raise InputError(f"switch {self.name}: hysteresis= applies only to a comparison gate",
                              self.span_of("hysteresis"))
         self.gate = None
-        self._batch = None
 
     def branches(self):
         return [Branch(self.nodes["a"], self.nodes["b"], CONDUCTOR)]
@@ -357,12 +357,9 @@ class Switch(TwoTerminal):
 
     # -- results ---------------------------------------------------------------------
     def states(self, probe) -> np.ndarray:
-        """Closed (1.0) or open (0.0) at each recorded time."""
+        """Closed (1.0) or open (0.0) at each recorded time, from the run's state log."""
         time = np.asarray(probe.time, dtype=float)
-        if self._batch is not None:
-            log_t, log_s = self._batch.history(self._column)
-        else:
-            return np.zeros_like(time)
+        log_t, log_s = probe.state_log(self)
         if log_t.size == 0:
             return np.zeros_like(time)
         k = np.searchsorted(log_t, time, side="right") - 1
@@ -388,21 +385,54 @@ class Switch(TwoTerminal):
 # The batch: every switch of a circuit.
 
 
+class SwitchState:
+    """The discrete states of every switch in one run (made by :meth:`SwitchBatch.new_state`).
+
+    ``closed`` holds each switch's state; ``log_t``/``log_s`` the times of
+    every change and the states from then on; ``cursor`` the next entry of
+    the merged schedule table; ``pending`` a comparison crossing the batch
+    located and the solver is stepping onto; ``chatter`` the consecutive
+    changes of each comparison gate.
+    """
+
+    __slots__ = ("closed", "cursor", "pending", "chatter", "t_seen", "log_t", "log_s", "g_cache")
+
+    def __init__(self, n: int, n_compare: int):
+        self.closed = np.zeros(n, dtype=bool)
+        self.cursor = 0
+        self.pending: tuple[float, float, np.ndarray] | None = None
+        self.chatter = np.zeros(n_compare, dtype=np.int64)
+        self.t_seen = -math.inf
+        self.log_t: list[float] = []
+        self.log_s: list[np.ndarray] = []
+        self.g_cache: tuple | None = None
+
+
+@dataclass(frozen=True)
+class SwitchSnapshot:
+    """The switch states at one instant, immutable (part of a run's end state)."""
+
+    time: float
+    closed: tuple[bool, ...]
+    chatter: tuple[int, ...]
+
+
 class SwitchBatch(NonlinearBatch):
     """All switches: ``f = g(state)*(v_a - v_b)``, piecewise linear between events.
 
     Time gates (schedules, PWM) and comparison gates are each evaluated
     with a handful of numpy calls per accepted time point, whatever the
-    number of switches.
+    number of switches. The batch holds only what compilation fixed; the
+    states of a run live in a :class:`SwitchState` from :meth:`new_state`.
     """
 
     piecewise_linear = True
 
     def __init__(self, elements, stamper):
         super().__init__(elements, stamper)
-        for k, e in enumerate(elements):
-            e._batch, e._column = self, k
+        self.column = {e.name: k for k, e in enumerate(elements)}
         n = len(elements)
+        self.size = n
         self.pattern = BranchPattern(np.array([e._a for e in elements]), np.array([e._b for e in elements]))
         self.f_rows = self.pattern.f_rows
         self.jf_rows, self.jf_cols = self.pattern.jf_rows, self.pattern.jf_cols
@@ -435,37 +465,56 @@ class SwitchBatch(NonlinearBatch):
         scale = np.maximum.reduce([np.abs(self.cmp_level), 2 * self.cmp_half, np.ones(len(cmp_))]) \
             if cmp_ else np.empty(0)
         self.cmp_tol = 1e-9 * scale
-        self.chatter = np.zeros(len(cmp_), dtype=np.int64)
         self.names = [e.name for e in elements]
-        self.state = np.zeros(n, dtype=bool)
-        self._t_seen = -math.inf
-        self._cursor = 0
-        self._pending: tuple[float, float, np.ndarray] | None = None
-        self._log_t: list[float] = []
-        self._log_s: list[np.ndarray] = []
-        self._g_cache: tuple | None = None
-        self._rewind(0.0)
+
+    # -- run state ------------------------------------------------------------------
+    def new_state(self, t: float = 0.0) -> SwitchState:
+        """Every switch as its gate sets it at time t (comparison gates open), log started."""
+        state = SwitchState(self.size, self.cmp_idx.size)
+        self._rewind(state, t)
+        return state
+
+    def _rewind(self, state: SwitchState, t: float) -> None:
+        closed = state.closed
+        closed[:] = False
+        closed[self.sched_idx] = self.sched_first
+        state.cursor = 0
+        self._advance_schedules(state, t)
+        if self.pwm_idx.size:
+            closed[self.pwm_idx] = pwm_states(t, self.pwm_period, self.pwm_duty, self.pwm_delay)
+        state.chatter[:] = 0
+        state.pending = None
+        state.t_seen = t
+        state.log_t = [t]
+        state.log_s = [closed.copy()]
+
+    def snapshot(self, state: SwitchState) -> SwitchSnapshot:
+        return SwitchSnapshot(state.t_seen, tuple(bool(v) for v in state.closed),
+                              tuple(int(v) for v in state.chatter))
+
+    def restore(self, snapshot: SwitchSnapshot, t: float) -> SwitchState:
+        """A state at t with the switches as in ``snapshot``: comparison gates keep
+        their state; schedules and PWM gates take the state their time gives."""
+        state = self.new_state(t)
+        if self.cmp_idx.size:
+            state.closed[self.cmp_idx] = np.asarray(snapshot.closed, dtype=bool)[self.cmp_idx]
+            state.chatter[:] = snapshot.chatter
+        state.log_s = [state.closed.copy()]
+        return state
+
+    def state_log(self, state: SwitchState, element) -> tuple[np.ndarray, np.ndarray]:
+        k = self.column[element.name]
+        return np.array(state.log_t, dtype=float), np.array([s[k] for s in state.log_s], dtype=float)
+
+    def state_key(self, state: SwitchState):
+        return state.closed.tobytes()
 
     # -- time gates -----------------------------------------------------------------
-    def _rewind(self, t: float) -> None:
-        """Start over (a new run): every state as at time t, the log restarted."""
-        self.state[:] = False
-        self.state[self.sched_idx] = self.sched_first
-        self._cursor = 0
-        self._advance_schedules(t)
-        if self.pwm_idx.size:
-            self.state[self.pwm_idx] = pwm_states(t, self.pwm_period, self.pwm_duty, self.pwm_delay)
-        self.chatter[:] = 0
-        self._pending = None
-        self._t_seen = t
-        self._log_t = [t]
-        self._log_s = [self.state.copy()]
-
-    def _advance_schedules(self, t: float) -> None:
+    def _advance_schedules(self, state: SwitchState, t: float) -> None:
         end = int(np.searchsorted(self.change_t, t * (1 + 1e-12) + 1e-30, side="right"))
-        if end > self._cursor:
-            self.state[self.change_k[self._cursor:end]] = self.change_s[self._cursor:end]
-            self._cursor = end
+        if end > state.cursor:
+            state.closed[self.change_k[state.cursor:end]] = self.change_s[state.cursor:end]
+            state.cursor = end
 
     def _signal(self, x: np.ndarray) -> np.ndarray:
         """``sign*(signal - level)`` of every comparison gate: > 0 means the comparison holds."""
@@ -473,57 +522,54 @@ class SwitchBatch(NonlinearBatch):
         return self.cmp_sign * (s - self.cmp_level)
 
     # -- protocol -----------------------------------------------------------------------
-    def evaluate(self, x, t):
-        if t < self._t_seen:
-            self._rewind(t)
-        g, jf = self._conductances()
+    def evaluate(self, x, t, state: SwitchState):
+        g, jf = self._conductances(state)
         v = self.pattern.across(x)
         return self.pattern.f_values(g * v), jf, self.empty, self.empty
 
-    def _conductances(self) -> tuple[np.ndarray, np.ndarray]:
+    def _conductances(self, state: SwitchState) -> tuple[np.ndarray, np.ndarray]:
         """Per-switch conductance and the Jacobian values, cached until a state changes."""
-        key = self.state.tobytes()
-        if self._g_cache is None or self._g_cache[0] != key:
-            g = np.where(self.state, self.g_on, self.g_off)
-            self._g_cache = (key, g, self.pattern.jf_values(g))
-        return self._g_cache[1], self._g_cache[2]
+        key = state.closed.tobytes()
+        cache = state.g_cache
+        if cache is None or cache[0] != key:
+            g = np.where(state.closed, self.g_on, self.g_off)
+            cache = state.g_cache = (key, g, self.pattern.jf_values(g))
+        return cache[1], cache[2]
 
-    def state_key(self):
-        return self.state.tobytes()
-
-    def update_events(self, t, x):
-        if t < self._t_seen:
-            self._rewind(t)
-        self._t_seen = t
-        old = self.state.copy()
-        self._advance_schedules(t)
+    def update_events(self, t, x, state: SwitchState):
+        if t < state.t_seen:
+            raise ValueError(f"switch states asked for t = {t:g} s after t = {state.t_seen:g} s: "
+                             "a run's state cannot go back in time (start a new run)")
+        state.t_seen = t
+        old = state.closed.copy()
+        self._advance_schedules(state, t)
         if self.pwm_idx.size:
-            self.state[self.pwm_idx] = pwm_states(t, self.pwm_period, self.pwm_duty, self.pwm_delay)
+            state.closed[self.pwm_idx] = pwm_states(t, self.pwm_period, self.pwm_duty, self.pwm_delay)
         if self.cmp_idx.size:
-            self._update_comparisons(t, x)
-        changed = bool(np.any(self.state != old))
+            self._update_comparisons(state, t, x)
+        changed = bool(np.any(state.closed != old))
         if changed:
-            self._log_t.append(t)
-            self._log_s.append(self.state.copy())
+            state.log_t.append(t)
+            state.log_s.append(state.closed.copy())
         return changed
 
-    def _update_comparisons(self, t: float, x: np.ndarray) -> None:
+    def _update_comparisons(self, state: SwitchState, t: float, x: np.ndarray) -> None:
         y = self._signal(x)
-        closed = self.state[self.cmp_idx]
+        closed = state.closed[self.cmp_idx]
         turn_on = ~closed & (y > self.cmp_half - self.cmp_tol)
         turn_off = closed & (y < -self.cmp_half + self.cmp_tol)
-        if self._pending is not None:
-            te, span, which = self._pending
+        if state.pending is not None:
+            te, span, which = state.pending
             if abs(t - te) <= 1e-6 * span:
                 # The solver landed on a crossing this batch located: take it.
                 turn_on |= which & ~closed
                 turn_off |= which & closed
-            self._pending = None
+            state.pending = None
         flip = turn_on | turn_off
-        self.state[self.cmp_idx] = closed ^ flip
-        self.chatter = np.where(flip, self.chatter + 1, 0)
-        if np.any(self.chatter >= MAX_CHATTER):
-            k = int(self.cmp_idx[np.argmax(self.chatter)])
+        state.closed[self.cmp_idx] = closed ^ flip
+        state.chatter = np.where(flip, state.chatter + 1, 0)
+        if np.any(state.chatter >= MAX_CHATTER):
+            k = int(self.cmp_idx[np.argmax(state.chatter)])
             raise SimulationError(
                 f"switch {self.names[k]} changes state at each of the last {MAX_CHATTER} time points "
                 f"(t = {t:.6g} s): its comparison gate chatters (no or too little hysteresis while its own "
@@ -532,11 +578,11 @@ class SwitchBatch(NonlinearBatch):
                 time=t, unknowns=(self.names[k],),
             )
 
-    def event_time(self, t0, x0, t1, x1):
+    def event_time(self, t0, x0, t1, x1, state: SwitchState):
         if not self.cmp_idx.size or not t1 > t0:
             return None
         y0, y1 = self._signal(x0), self._signal(x1)
-        closed = self.state[self.cmp_idx]
+        closed = state.closed[self.cmp_idx]
         target = np.where(closed, -self.cmp_half, self.cmp_half)
         crosses = np.where(closed, (y0 >= target) & (y1 < target), (y0 <= target) & (y1 > target))
         if not np.any(crosses):
@@ -547,17 +593,11 @@ class SwitchBatch(NonlinearBatch):
         te_all = t0 + frac * (t1 - t0)
         te = float(np.min(te_all))
         span = t1 - t0
-        self._pending = (te, span, crosses & (te_all <= te + 1e-6 * span))
+        state.pending = (te, span, crosses & (te_all <= te + 1e-6 * span))
         return te
 
     def corners(self, start, stop):
         return np.empty(0)
-
-    # -- history -----------------------------------------------------------------------
-    def history(self, column: int) -> tuple[np.ndarray, np.ndarray]:
-        """Times of the state log and switch ``column``'s state at each (1.0 closed)."""
-        states = np.array([s[column] for s in self._log_s], dtype=float)
-        return np.array(self._log_t, dtype=float), states
 
 
 Switch.Batch = SwitchBatch
