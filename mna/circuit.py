@@ -32,7 +32,7 @@ from pathlib import Path
 from typing import Any, Iterable, Sequence
 
 from . import netlist as nl
-from .elements.base import ELEMENT, ELECTRICAL, REFERENCE, SHAFT, Arg, Element
+from .elements.base import ELEMENT, ELECTRICAL, REFERENCE, SHAFT, THERMAL, Arg, Element
 from .elements.registry import lookup, suggest
 from .errors import InputError, NetlistSyntaxError, Span, UnitsError, UnknownNameError
 from .expressions import evaluate
@@ -40,13 +40,16 @@ from .units import (
     AMPERE,
     DIMENSIONLESS,
     HERTZ,
+    KELVIN,
     PREFIXES,
     SECOND,
     VOLT,
     Dimension,
+    DimensionError,
     Quantity,
     describe,
     parse_quantity,
+    refuse_celsius,
 )
 from .units import UnitError
 from .waveforms import Constant, Piecewise, Pulse, Sine, Step, Waveform
@@ -126,6 +129,13 @@ _NUMBER_PART = re.compile(r"^[ \t]*[-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?")
 _UNIT_TOKEN = re.compile(r"[^\W\d_]+")
 
 
+def _refuse_celsius(q: Quantity, what: str, span: Span | None) -> None:
+    try:
+        refuse_celsius(q, what)
+    except DimensionError as exc:
+        raise UnitsError(str(exc), span) from None
+
+
 def _check_dimension(q: Quantity, want: Dimension, what: str, span: Span | None, got_text: str | None = None) -> float:
     if q.dim != want:
         got = describe(q.dim)
@@ -187,10 +197,13 @@ class Elaborator:
 
     def __init__(self, circuit: "Circuit"):
         self.circuit = circuit
+        self._absolute = False  # the argument being read takes an absolute temperature (degC allowed)
 
     # -- values ---------------------------------------------------------------
     def quantity(self, expr: nl.Expr, want: Dimension | None, what: str) -> float:
         q = evaluate(expr, self.circuit.params)
+        if not self._absolute:
+            _refuse_celsius(q, what, expr.span)
         if want is None:
             return q.value
         text = expr.text if isinstance(expr, nl.Number) else None
@@ -276,6 +289,13 @@ class Elaborator:
         return word
 
     def argument(self, arg: Arg, expr: nl.Expr, what: str) -> Any:
+        self._absolute = arg.absolute
+        try:
+            return self._angular_argument(arg, expr, what)
+        finally:
+            self._absolute = False
+
+    def _angular_argument(self, arg: Arg, expr: nl.Expr, what: str) -> Any:
         if arg.angular:
             hertz = _hertz_literal(expr)
             if hertz is not None:
@@ -468,7 +488,7 @@ class Circuit:
         self.title = title
         self.file: str | None = None
         self.elements: dict[str, Element] = {}
-        self.nodes: dict[str, str] = {REFERENCE[ELECTRICAL]: ELECTRICAL, REFERENCE[SHAFT]: SHAFT}
+        self.nodes: dict[str, str] = {node: domain for domain, node in REFERENCE.items()}
         self.node_spans: dict[str, Span | None] = {}
         self.params: dict[str, Quantity] = {}
         self.analyses: list[AnalysisRequest] = []
@@ -479,7 +499,7 @@ class Circuit:
         self._elaborator = Elaborator(self)
 
     def __repr__(self) -> str:
-        return f"<Circuit {self.name}: {len(self.elements)} elements, {len(self.nodes) - 2} nodes>"
+        return f"<Circuit {self.name}: {len(self.elements)} elements, {len(self.nodes) - len(REFERENCE)} nodes>"
 
     # -- building -------------------------------------------------------------
     def add_element(self, element: Element, span: Span | None = None) -> Element:
@@ -602,6 +622,7 @@ class Circuit:
         (target,) = names
         node_quantities = {"v": (ELECTRICAL, VOLT)}
         node_quantities.update(_shaft_quantities())
+        node_quantities["T"] = (THERMAL, KELVIN)
         if q in node_quantities and target in self.nodes and self.nodes[target] == node_quantities[q][0]:
             return SignalRef(q, names, "node", node_quantities[q][1], expr.span)
         element = self.elements.get(target)
@@ -623,7 +644,7 @@ class Circuit:
             )
         raise UnknownNameError(f"unknown quantity {q}()", expr.span,
                                hint="quantities: v(node), v(a, b), i(E), p(E), w(shaft), rpm(shaft), "
-                                    "angle(shaft), torque(E), emf(E), pmech(E)")
+                                    "angle(shaft), torque(E), emf(E), pmech(E), T(thermal node)")
 
     def _require_node(self, node: str, domain: str, span: Span | None) -> None:
         have = self.nodes.get(node)
@@ -728,11 +749,15 @@ def _python_value(arg: Arg, value: Any, what: str) -> Any:
             q = parse_quantity(value)
         except UnitError as exc:
             raise UnitsError(f"{what}: {exc}") from None
+        if not arg.absolute:
+            _refuse_celsius(q, what, None)
         try:
             number = _check_dimension(q, arg.dimension, what, None, value)
         except UnitsError as exc:
             raise (_angular_units_error(exc) if arg.angular else exc) from None
     elif isinstance(value, Quantity):
+        if not arg.absolute:
+            _refuse_celsius(value, what, None)
         number = _check_dimension(value, arg.dimension, what, None)
     else:
         number = float(value)

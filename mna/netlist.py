@@ -458,9 +458,9 @@ def make_number(text: str, span: Span) -> Number:
 # so in ``turns=10 field=1 T`` the ``10`` has no unit ``field``.
 _Q = (
     r"[-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?"
-    r"(?:[ \t]*[A-Za-z\u00b5\u03bc\u03a9%]+(?:\^-?\d+)?"
-    r"(?:[*/][A-Za-z\u00b5\u03bc\u03a9%]+(?:\^-?\d+)?)*"
-    r"(?![\w=(\u00b5\u03bc\u03a9%^*/]))?"
+    r"(?:[ \t]*[A-Za-z\u00b0\u00b5\u03bc\u03a9%]+(?:\^-?\d+)?"
+    r"(?:[*/][A-Za-z\u00b0\u00b5\u03bc\u03a9%]+(?:\^-?\d+)?)*"
+    r"(?![\w=(\u00b0\u00b5\u03bc\u03a9%^*/]))?"
 )
 _FAST = re.compile(
     r"(?P<kind>[a-z][a-z0-9]*(?:-[a-z0-9]+)*)[ \t]+"

@@ -26,14 +26,14 @@ import numpy as np
 import scipy.sparse as sp
 
 from .elements.base import REFERENCE, Element, NonlinearBatch
-from .units import AMPERE, ANGULAR_SPEED, VOLT, Dimension
+from .units import AMPERE, ANGULAR_SPEED, KELVIN, VOLT, Dimension
 from .waveforms import BatchEvaluator, Waveform
 
 if TYPE_CHECKING:  # pragma: no cover
     from .circuit import Circuit
 
-#: Absolute Newton tolerance per unknown dimension (SI): 1 uV, 1 pA, 1 urad/s.
-ABSTOL = {VOLT: 1e-6, AMPERE: 1e-12, ANGULAR_SPEED: 1e-6}
+#: Absolute Newton tolerance per unknown dimension (SI): 1 uV, 1 pA, 1 urad/s, 1 uK.
+ABSTOL = {VOLT: 1e-6, AMPERE: 1e-12, ANGULAR_SPEED: 1e-6, KELVIN: 1e-6}
 DEFAULT_ABSTOL = 1e-9
 
 #: Systems with at most this many unknowns keep their matrices dense: they
@@ -61,7 +61,7 @@ class Stamper:
         self.node_index: dict[str, int] = {}
         self.own_index: dict[tuple[str, str], int] = {}
         references = set(REFERENCE.values())
-        from .elements.base import SHAFT
+        from .elements.base import SHAFT, THERMAL
 
         for node, domain in circuit.nodes.items():
             if node in references:
@@ -70,6 +70,10 @@ class Stamper:
             if domain == SHAFT:
                 self.names.append(f"w({node})")
                 self.dims.append(ANGULAR_SPEED)
+            elif domain == THERMAL:
+                # the temperature rise above the ambient reference (K)
+                self.names.append(f"T({node})")
+                self.dims.append(KELVIN)
             else:
                 self.names.append(f"v({node})")
                 self.dims.append(VOLT)

@@ -86,7 +86,8 @@ def check_topology(circuit: "Circuit") -> TopologyReport:
         domain = circuit.nodes[group[0]]
         ref = REFERENCE.get(domain, "gnd")
         listed = ", ".join(repr(n) for n in sorted(group)[:6]) + (" ..." if len(group) > 6 else "")
-        through = "an inertia, friction, a speed source..." if domain == "shaft" else "a resistor, a source..."
+        through = {"shaft": "an inertia, friction, a speed source...",
+                   "thermal": "a thermal resistance, a temperature source..."}.get(domain, "a resistor, a source...")
         raise TopologyError(
             f"node{'s' if len(group) > 1 else ''} {listed} {'have' if len(group) > 1 else 'has'} "
             f"no connection to {ref!r}: the circuit is in separate pieces",
@@ -143,6 +144,9 @@ def check_topology(circuit: "Circuit") -> TopologyReport:
         if domain == "shaft":
             msg = (f"shaft node {members[0]!r} has nothing to hold it: only {', '.join(names)} act on it")
             hint = "give the shaft an inertia, friction or a speed source"
+        elif domain == "thermal":
+            msg = (f"thermal node {members[0]!r} has no path for its heat: only {', '.join(names)} act on it")
+            hint = "connect it to the ambient through a thermal resistance, a Foster or Cauer ladder or a heatsink"
         else:
             msg = (f"{', '.join(names)} force{'s' if len(names) == 1 else ''} the current into node"
                    f"{'s' if len(members) > 1 else ''} {', '.join(repr(m) for m in members[:4])} "

@@ -64,6 +64,9 @@ __all__ = [
     "ROTATIONAL_DAMPING",
     "MACHINE_CONSTANT",
     "ACTION_INTEGRAL",
+    "THERMAL_RESISTANCE",
+    "THERMAL_CAPACITANCE",
+    "AbsoluteTemperature",
 ]
 
 
@@ -214,6 +217,8 @@ INERTIA = KILOGRAM * METRE**2
 ROTATIONAL_DAMPING = TORQUE * SECOND  # N*m*s/rad
 MACHINE_CONSTANT = VOLT * SECOND  # V*s/rad = N*m/A (e*i = T*w); same as WEBER
 ACTION_INTEGRAL = AMPERE**2 * SECOND  # Joule integral I^2*t, A^2*s
+THERMAL_RESISTANCE = KELVIN / WATT  # K/W (= degC/W, a temperature difference per watt)
+THERMAL_CAPACITANCE = JOULE / KELVIN  # J/K
 
 
 # Friendly names for error messages. Where one dimension has several common
@@ -241,6 +246,8 @@ _DESCRIPTIONS: dict[Dimension, str] = {
     INERTIA: "kilogram square metres (kg*m^2)",
     ROTATIONAL_DAMPING: "newton-metre-seconds per radian (N*m*s/rad)",
     ACTION_INTEGRAL: "ampere-squared seconds (A^2*s)",
+    THERMAL_RESISTANCE: "kelvins per watt (K/W)",
+    THERMAL_CAPACITANCE: "joules per kelvin (J/K)",
 }
 
 # Preferred symbol for output labels. Each must parse back with scale 1.
@@ -251,6 +258,8 @@ _SYMBOLS: dict[Dimension, str] = {
     SECOND: "s",
     AMPERE: "A",
     KELVIN: "K",
+    THERMAL_RESISTANCE: "K/W",
+    THERMAL_CAPACITANCE: "J/K",
     VOLT: "V",
     OHM: "ohm",
     SIEMENS: "S",
@@ -345,7 +354,18 @@ UNITS: dict[str, _Unit] = {
     "rpm": _Unit(0, 2.0 * math.pi / 60.0, HERTZ, False),  # one turn (2*pi rad) per minute
     "deg": _Unit(0, math.pi / 180.0, DIMENSIONLESS, False),
     "%": _Unit(-2, 1.0, DIMENSIONLESS, False),
+    # A degree Celsius inside a compound unit (degC/W) is a temperature
+    # difference, the size of a kelvin. Alone it is an absolute temperature
+    # with an offset: see parse_quantity and AbsoluteTemperature.
+    "\u00b0C": _Unit(0, 1.0, KELVIN, False),
+    "degC": _Unit(0, 1.0, KELVIN, False),
 }
+
+#: 0 degC in kelvins (exact, the SI definition of the Celsius scale).
+CELSIUS_ZERO = 273.15
+#: Unit spellings that, standing alone after a number, mean an absolute
+#: temperature in degrees Celsius.
+CELSIUS = ("\u00b0C", "degC")
 
 _ONE = _Unit(0, 1.0, DIMENSIONLESS, False)  # the literal "1" in "1/s"
 
@@ -421,7 +441,7 @@ def _unknown_unit(token: str, text: str, offset: int) -> UnitError:
 # --------------------------------------------------------------------------
 
 _SPACE = re.compile(r"[ \t]*")
-_SYMBOL = re.compile(r"%|1(?=[ \t]*/)|[^\W\d_]+")  # "1" only as in "1/s"
+_SYMBOL = re.compile(r"%|\u00b0C|1(?=[ \t]*/)|[^\W\d_]+")  # "1" only as in "1/s"
 _EXPONENT = re.compile(r"[+-]?\d+")
 
 
@@ -652,6 +672,40 @@ class Quantity:
         return format_si(self.value, unit_symbol(self.dim))
 
 
+@dataclass(frozen=True, slots=True)
+class AbsoluteTemperature(Quantity):
+    """A temperature read on the Celsius scale (``40 °C``), held in kelvins (313.15 K).
+
+    The Celsius scale has an offset, so such a value is an absolute
+    temperature, never a difference. It may be compared, and added to or
+    subtracted from (absolute + difference is absolute, absolute - absolute
+    is a difference, both plain kelvins); it may not be scaled, negated or
+    raised to a power, where ``10 °C`` meant as a 10 K difference would
+    silently become 283.15 K. Arguments that take an absolute temperature
+    (``ambient=``, a junction's reference temperature) accept it; the others
+    refuse it (see :func:`refuse_celsius`).
+    """
+
+    def _refuse(self, *_: object) -> Quantity:
+        raise DimensionError(
+            f"{self.value - CELSIUS_ZERO:g} °C is an absolute temperature ({self.value:g} K) on a scale "
+            "with an offset: it cannot be scaled or negated; write a temperature difference in K "
+            "(a difference of 1 °C is 1 K)")
+
+    __mul__ = __rmul__ = __truediv__ = __rtruediv__ = __pow__ = __rpow__ = __neg__ = _refuse
+
+    def __str__(self) -> str:
+        return f"{format_si(self.value - CELSIUS_ZERO, '', 6)} \u00b0C"
+
+
+def refuse_celsius(q: Quantity, what: str) -> None:
+    """Raise DimensionError when ``q`` was written in °C where a difference (or non-temperature) is meant."""
+    if isinstance(q, AbsoluteTemperature):
+        raise DimensionError(
+            f"{what} takes a temperature difference (or no temperature), and {q} is an absolute "
+            "temperature on the Celsius scale: write a difference in K (a difference of 1 °C is 1 K)")
+
+
 _NUMBER = re.compile(r"[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?")
 
 
@@ -675,6 +729,8 @@ def parse_quantity(text: str) -> Quantity:
     value = float(Decimal(match.group()).scaleb(pow10))
     if factor != 1.0:
         value *= factor
+    if text[match.end():].strip() in CELSIUS:
+        return AbsoluteTemperature(value + CELSIUS_ZERO, KELVIN)
     return Quantity(value, dim)
 
 

@@ -9,10 +9,10 @@ from typing import TYPE_CHECKING, Sequence
 import numpy as np
 
 from ..circuit import SignalRef
-from ..elements.base import ELECTRICAL, REFERENCE, SHAFT
+from ..elements.base import ELECTRICAL, REFERENCE, SHAFT, THERMAL
 from ..system import Probe, System, compile_circuit
 from ..topology import TopologyReport, check_topology
-from ..units import AMPERE, ANGULAR_SPEED, DIMENSIONLESS, VOLT
+from ..units import AMPERE, ANGULAR_SPEED, DIMENSIONLESS, KELVIN, VOLT
 
 if TYPE_CHECKING:  # pragma: no cover
     from ..circuit import Circuit
@@ -69,6 +69,8 @@ def default_signals(circuit: "Circuit") -> list[SignalRef]:
             refs.append(SignalRef("v", (node,), "node", VOLT))
         elif domain == SHAFT:
             refs.append(SignalRef("w", (node,), "node", ANGULAR_SPEED))
+        elif domain == THERMAL:
+            refs.append(SignalRef("T", (node,), "node", KELVIN))
     for element in circuit.elements.values():
         if "i" in element.outputs:
             refs.append(SignalRef("i", (element.name,), "element", AMPERE))
@@ -85,6 +87,10 @@ def compute_signal(ref: SignalRef, circuit: "Circuit", probe: Probe) -> np.ndarr
             return values * (60.0 / (2.0 * math.pi))
         if ref.quantity == "angle":
             return _cumulative_trapezoid(probe.time, values)
+        if ref.quantity == "T":  # a thermal node holds its rise above the ambient
+            from ..elements.thermal import ambient_temperature
+
+            return values + ambient_temperature(circuit)
         return values
     element = circuit.elements[ref.names[0]]
     return np.asarray(element.output(ref.quantity, probe), dtype=float)

@@ -7,7 +7,7 @@ attributes:
 2. ``ports`` -- its terminals as :class:`Port` objects: a two-terminal
    connection ``a -> b``, a single node, a keyword connection
    (``shaft=rotor``) or a list of other elements (``coupling``), each with
-   its domain (``"electrical"`` or ``"shaft"``).
+   its domain (``"electrical"``, ``"shaft"`` or ``"thermal"``).
 3. ``main`` -- the name of the argument that the bare value after the
    terminals fills (``resistance`` for ``resistor R1 a -> b 100 ohm``).
 4. ``arguments`` -- every argument as an :class:`Arg`, with the dimension it
@@ -56,10 +56,11 @@ if TYPE_CHECKING:  # pragma: no cover
 
 ELECTRICAL = "electrical"
 SHAFT = "shaft"
+THERMAL = "thermal"  # temperature (K) as the potential, heat flow (W) as the flow
 ELEMENT = "element"  # a port that names other elements (coupling)
 
 #: The reference node of each domain.
-REFERENCE = {ELECTRICAL: "gnd", SHAFT: "frame"}
+REFERENCE = {ELECTRICAL: "gnd", SHAFT: "frame", THERMAL: "ambient"}
 
 # Topology roles of a branch.
 CONDUCTOR = "conductor"  # conducts at DC: resistor, diode, closed switch
@@ -99,6 +100,7 @@ class Arg:
     nonnegative: bool = False
     doc: str = ""
     angular: bool = False
+    absolute: bool = False  # an absolute temperature: takes K or a literal in degC
 
     @property
     def required(self) -> bool:

@@ -39,6 +39,13 @@ BUILTIN = {
     "choke": "mna.elements.magnetics:Choke",
     "solenoid": "mna.elements.magnetics:Solenoid",
     "switch": "mna.elements.switches:Switch",
+    "ambient-temperature": "mna.elements.thermal:AmbientTemperature",
+    "thermal-resistance": "mna.elements.thermal:ThermalResistance",
+    "thermal-capacitance": "mna.elements.thermal:ThermalCapacitance",
+    "foster": "mna.elements.thermal:Foster",
+    "cauer": "mna.elements.thermal:Cauer",
+    "temperature-source": "mna.elements.thermal:TemperatureSource",
+    "heat-source": "mna.elements.thermal:HeatSource",
 }
 
 _extra: dict[str, type[Element]] = {}
