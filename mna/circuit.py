@@ -25,9 +25,11 @@ from __future__ import annotations
 
 import difflib
 import gc
+import math
 import re
 from contextlib import contextmanager
 from dataclasses import dataclass, field
+from numbers import Real
 from pathlib import Path
 from typing import Any, Iterable, Sequence
 
@@ -103,6 +105,14 @@ TRANSIENT_SETTINGS: dict[str, Arg] = {
     "min-step": Arg("min-step", SECOND, default=None, positive=True, doc="smallest step before failing"),
     "sample": Arg("sample", SECOND, default=None, positive=True,
                   doc="also resample the results on a uniform grid of this spacing"),
+    # Work limits (mna.limits): raise them to allow a longer run.
+    "step-limit": Arg("step-limit", DIMENSIONLESS, default=None, positive=True, doc="most steps a run may take"),
+    "edge-limit": Arg("edge-limit", DIMENSIONLESS, default=None, positive=True,
+                      doc="most edges of periodic sources and gates over a run"),
+    "point-limit": Arg("point-limit", DIMENSIONLESS, default=None, positive=True,
+                       doc="most output points a run may record"),
+    "memory-limit": Arg("memory-limit", DIMENSIONLESS, default=None, positive=True,
+                        doc="most memory for a run's recorded results, in MB"),
 }
 ANALYSES: dict[str, dict[str, Arg]] = {"dc": {}, "transient": TRANSIENT_SETTINGS}
 
@@ -454,6 +464,10 @@ class Elaborator:
                 if arg.required:
                     raise InputError(f"simulate {st.analysis} needs {key}=", st.analysis_span)
                 settings[key] = arg.default
+        if st.analysis == "transient":
+            from .analyses.settings import check_request
+
+            self.circuit.warnings.extend(check_request(settings, st.analysis_span))
         request = AnalysisRequest(st.analysis, settings, st.analysis_span)
         request.spans = spans  # type: ignore[attr-defined]
         return request
@@ -692,7 +706,7 @@ class Circuit:
             if name not in TRANSIENT_SETTINGS or name in settings:
                 known = ", ".join(k.replace("-", "_") for k in TRANSIENT_SETTINGS if k not in settings)
                 raise InputError(f"transient() got an unknown option {key!r}; the options are {known}")
-            settings[name] = value
+            settings[name] = _python_value(TRANSIENT_SETTINGS[name], value, f"transient() {key}=")
         records = None
         if record is not None:
             records = []
@@ -721,10 +735,7 @@ def _shaft_quantities() -> dict[str, tuple[str, Dimension]]:
 
 
 def _seconds(value: float | str, what: str) -> float:
-    if isinstance(value, str):
-        q = parse_quantity(value)
-        return _check_dimension(q, SECOND, what, None, value)
-    return float(value)
+    return _python_value(Arg(what, SECOND), value, what)
 
 
 def _python_value(arg: Arg, value: Any, what: str) -> Any:
@@ -759,8 +770,12 @@ def _python_value(arg: Arg, value: Any, what: str) -> Any:
         if not arg.absolute:
             _refuse_celsius(value, what, None)
         number = _check_dimension(value, arg.dimension, what, None)
-    else:
+    elif isinstance(value, Real) and not isinstance(value, bool):
         number = float(value)
+    else:
+        raise InputError(f"{what} needs a number or a quantity like '4.7 uF', got {value!r}")
+    if not math.isfinite(number):
+        raise InputError(f"{what} must be a finite number, got {number!r}")
     if arg.positive and not number > 0:
         raise InputError(f"{what} must be positive, got {number:g}")
     if arg.nonnegative and number < 0:

@@ -131,3 +131,16 @@ class SimulationError(MnaError, RuntimeError):
 
 class MeasurementError(InputError):
     """A measurement cannot be taken on the waveforms (window outside the run...)."""
+
+
+class LimitError(InputError):
+    """A run would do more work than a limit allows (steps, edges, output points, memory).
+
+    Raised before the run starts, when the settings alone show it: the
+    message names the limit and the setting that raises it (``step-limit=``,
+    ``edge-limit=``, ``point-limit=``, ``memory-limit=``).
+    """
+
+
+class LimitReached(SimulationError):
+    """A run stopped early at a work limit; ``partial`` holds what it computed."""

@@ -18,11 +18,12 @@ Kinds (netlist syntax in grammar/README.md):
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass
 from typing import ClassVar, Sequence
 
 import numpy as np
+
+from .limits import periodic_edges
 
 
 class Waveform:
@@ -205,13 +206,7 @@ class Pulse(Waveform):
 
     def _edges(self, start, stop, offsets) -> np.ndarray:
         """delay + k*period + offset for every period overlapping (start, stop]."""
-        if stop <= self.delay or not len(offsets):
-            return np.empty(0)
-        first = max(0, math.floor((start - self.delay) / self.period))
-        last = math.ceil((stop - self.delay) / self.period)
-        k = np.arange(first, last + 1, dtype=float)[:, None]
-        pts = (self.delay + k * self.period + np.asarray(offsets, dtype=float)).ravel()
-        return np.unique(pts[(pts > start) & (pts <= stop)])
+        return periodic_edges(start, stop, self.delay, self.period, offsets, "a pwm() source")
 
 
 @dataclass(frozen=True)

@@ -49,9 +49,11 @@ from ..results import Waveforms
 from ..runstate import DiscreteStates
 from ..solver import Factorizer, SingularMatrix, newton, raise_singular
 from ..system import Probe, System
+from .. import limits
 from ..units import AMPERE, VOLT
 from .common import compute_signal, dc_leak, default_signals, plan, prepare, unit_label
 from .dc import solve_dc
+from .settings import TransientSettings as _Settings
 
 if TYPE_CHECKING:  # pragma: no cover
     from ..circuit import Circuit
@@ -66,9 +68,6 @@ JUMP_FRACTION = 1e-9
 #: starts again from the values before the jump.
 JUMP_GUESS_ITERATIONS = 6
 
-DEFAULT_TOLERANCE = 1e-3  # relative local error per step
-DEFAULT_VOLTAGE_TOLERANCE = 1e-6  # V, absolute floor of the local error
-DEFAULT_CURRENT_TOLERANCE = 1e-9  # A
 RETRY_FACTOR = 0.25
 RESTART_FRACTION = 0.01  # first step after a corner or event, relative to the step before
 MAX_GROWTH = 4.0
@@ -113,6 +112,7 @@ class _Recorder:
         k = self.count
         if k == self.t.size:
             grow = max(16, k)
+            limits.current().check_memory(k + grow, self.x.shape[1] + self.r.shape[1], time=float(t))
             self.t = np.concatenate([self.t, np.empty(grow)])
             self.x = np.concatenate([self.x, np.empty((grow, self.x.shape[1]))])
             self.r = np.concatenate([self.r, np.empty((grow, self.r.shape[1]))])
@@ -120,37 +120,6 @@ class _Recorder:
         self.x[k] = x
         self.r[k] = rates
         self.count = k + 1
-
-
-class _Settings:
-    def __init__(self, settings: dict[str, Any]):
-        self.until = float(settings["until"])
-        if not self.until > 0:
-            raise InputError(f"until= must be positive, got {self.until:g} s")
-        step = settings.get("step")
-        self.step = None if step is None else float(step)
-        if self.step is not None and not self.step > 0:
-            raise InputError(f"step= must be positive, got {self.step:g} s")
-        if self.step is not None:
-            self.step = min(self.step, self.until)
-        self.method: IntegrationMethod = get_method(settings.get("method") or "backward-euler")
-        self.start = settings.get("start") or "dc"
-        if self.start not in ("dc", "rest"):
-            raise InputError(f"start= must be dc or rest, got {self.start!r}")
-        self.tolerance = float(settings.get("tolerance") or DEFAULT_TOLERANCE)
-        if not 0 < self.tolerance < 1:
-            raise InputError(f"tolerance= must lie between 0 and 100 %, got {self.tolerance:g}")
-        self.voltage_tolerance = float(settings.get("voltage-tolerance") or DEFAULT_VOLTAGE_TOLERANCE)
-        self.current_tolerance = float(settings.get("current-tolerance") or DEFAULT_CURRENT_TOLERANCE)
-        max_step = settings.get("max-step")
-        self.max_step = float(max_step) if max_step else self.until / 50.0
-        min_step = settings.get("min-step")
-        self.min_step = float(min_step) if min_step else self.until * 1e-13
-        sample = settings.get("sample")
-        self.sample = float(sample) if sample else None
-        if self.sample is not None and not self.sample > 0:
-            raise InputError(f"sample= must be positive, got {self.sample:g} s")
-        self.progress = settings.get("progress")
 
 
 def transient(circuit: "Circuit", settings: dict[str, Any], records: Sequence[SignalRef] | None) -> Waveforms:
@@ -162,7 +131,8 @@ def transient(circuit: "Circuit", settings: dict[str, Any], records: Sequence[Si
     need_x, need_states = plan(system, circuit, refs)
     run = _Run(system, cfg, need_x, need_states, report)
     try:
-        run.execute()
+        with limits.active(cfg.limits):
+            run.execute()
     except SimulationError as exc:
         exc.partial = _finish(circuit, system, refs, run, started, cfg, "failed", exc.message)
         raise
@@ -182,6 +152,7 @@ class _Run:
         self.report = report
         self.factorizer = Factorizer(system, cache_size=16)
         capacity = int(min(cfg.until / cfg.step, 5e7)) + 16 if cfg.step else 4096
+        cfg.limits.check_memory(capacity, len(need_x) + len(need_states))
         self.rec = _Recorder(len(need_x), len(need_states), capacity)
         self.stats = {"accepted": 0, "rejected": 0, "newton_iterations": 0, "events": 0,
                       "retries": 0}
@@ -421,6 +392,8 @@ class _Run:
                     qdot, exact_rates = rates0, True
 
         while t < until:
+            cfg.limits.check_run(self.stats["accepted"] + self.stats["rejected"] + self.stats["retries"],
+                                 self.rec.count, t)
             if progress is not None and _time.perf_counter() > next_report:
                 progress(t, until)
                 next_report = _time.perf_counter() + 0.2
@@ -697,7 +670,7 @@ def _finish(circuit, system: System, refs, run: _Run, started, cfg: _Settings, s
     )
     # (+ 0.0 turns -0.0 into 0.0 so reports never show "-0")
     signals = {ref.label: compute_signal(ref, circuit, probe) + 0.0 for ref in refs}
-    notes = []
+    notes = [n for n in cfg.notes if not any(n in w for w in circuit.warnings)]
     if cfg.sample is not None and n > 1:
         time, signals = _resample(time, signals, cfg.sample, run.method.order)
     steps = np.diff(rec.t[:n])

@@ -58,6 +58,7 @@ import numpy as np
 from .. import netlist as nl
 from ..errors import InputError, SimulationError, UnitsError, UnknownNameError
 from ..expressions import evaluate
+from ..limits import periodic_edges
 from ..units import AMPERE, DIMENSIONLESS, HERTZ, OHM, SECOND, VOLT, WATT, Dimension, describe
 from .base import CONDUCTOR, Arg, Branch, NonlinearBatch
 from .batching import BranchPattern, NodeSelector
@@ -212,12 +213,8 @@ class PwmGate:
         if not 0.0 < self.duty < 1.0 or stop <= self.delay:
             pts = np.array([self.delay]) if self.duty > 0 and self.delay > 0 else np.empty(0)
             return pts[(pts > start) & (pts <= stop)]
-        period = self.period
-        first = max(0, math.floor((start - self.delay) / period))
-        last = math.ceil((stop - self.delay) / period)
-        k = np.arange(first, last + 1, dtype=float)[:, None]
-        pts = (self.delay + k * period + np.array([0.0, self.duty * period])).ravel()
-        return np.unique(pts[(pts > start) & (pts <= stop)])
+        return periodic_edges(start, stop, self.delay, self.period, [0.0, self.duty * self.period],
+                              "a pwm() gate")
 
 
 def pwm_states(t: np.ndarray | float, period: np.ndarray, duty: np.ndarray, delay: np.ndarray) -> np.ndarray:
