@@ -25,6 +25,7 @@ Embedding::
 # The public names are imported on first use (PEP 562), so that the command
 # line's --help does not pay for numpy, scipy and lark.
 _EXPORTS = {
+    "Block": "mna.blocks",
     "Circuit": "mna.circuit",
     "load": "mna.circuit",
     "parse": "mna.circuit",
@@ -63,6 +64,7 @@ __version__ = "0.1.0"
 
 __all__ = [
     "Arg",
+    "Block",
     "Branch",
     "Circuit",
     "Element",

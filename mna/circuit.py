@@ -208,10 +208,37 @@ class Elaborator:
     def __init__(self, circuit: "Circuit"):
         self.circuit = circuit
         self._absolute = False  # the argument being read takes an absolute temperature (degC allowed)
+        #: The block instance being expanded (``mna.blocks.Scope``), or None
+        #: at the top level of the file.
+        self.scope = None
+
+    # -- names inside a block instance ------------------------------------------
+    @property
+    def params(self) -> dict[str, Quantity]:
+        """The parameters visible here: the file's, or the block instance's."""
+        return self.circuit.params if self.scope is None else self.scope.params
+
+    def node_name(self, name: str) -> str:
+        """A node as written here -> its name in the circuit (``mid`` -> ``S1.mid``)."""
+        return name if self.scope is None else self.scope.node(name)
+
+    def element_name(self, name: str) -> str:
+        """An element as written here -> its name in the circuit (``Rs`` -> ``S1.Rs``)."""
+        return name if self.scope is None else self.scope.prefix + name
+
+    def place(self, st: nl.ElementStatement) -> None:
+        """Add the element a statement describes, or expand the block it uses."""
+        block = self.circuit.blocks.get(st.kind)
+        if block is not None:
+            from .blocks import expand
+
+            expand(self, block, st)
+            return
+        self.circuit.add_element(self.element(st), st.name_span)
 
     # -- values ---------------------------------------------------------------
     def quantity(self, expr: nl.Expr, want: Dimension | None, what: str) -> float:
-        q = evaluate(expr, self.circuit.params)
+        q = evaluate(expr, self.params)
         if not self._absolute:
             _refuse_celsius(q, what, expr.span)
         if want is None:
@@ -337,9 +364,32 @@ class Elaborator:
     def element(self, st: nl.ElementStatement) -> Element:
         cls = lookup(st.kind)
         if cls is None:
-            close = suggest(st.kind)
+            close = difflib.get_close_matches(st.kind, sorted(set(self.circuit.blocks) | set(suggest(st.kind))),
+                                              n=1, cutoff=0.6)
             hint = f"did you mean {close[0]!r}?" if close else "run 'mna kinds' for the list of element kinds"
             raise UnknownNameError(f"unknown element kind {st.kind!r}", st.kind_span, hint=hint)
+        label = self.element_name(st.name)
+        nodes, params, spans = self.bind(cls, st)
+        try:
+            return cls(label, nodes, params, span=st.name_span, spans=spans)
+        except InputError:
+            raise
+        except (ValueError, TypeError) as exc:
+            raise InputError(f"{st.kind} {label}: {exc}", st.name_span) from None
+
+    def bind(self, cls, st: nl.ElementStatement) -> tuple[dict[str, Any], dict[str, Any], dict[str, Span]]:
+        """Map a statement's operands and arguments onto a kind's ports and arguments.
+
+        ``cls`` is an element kind or a block definition (anything with
+        ``ports``, ``main``, ``arguments`` and ``arg()``). Returns the nodes
+        (named as in the circuit), the argument values (SI) and their spans.
+        """
+        label = self.element_name(st.name)
+        if "." in st.name:
+            raise InputError(
+                f"{st.kind} {label}: an element's name cannot contain '.'", st.name_span,
+                hint="a dot joins a block instance's name and a name inside it, as in S1.Rs",
+            )
         operands = list(st.operands)
         nodes: dict[str, Any] = {}
         spans: dict[str, Span] = {}
@@ -349,47 +399,47 @@ class Elaborator:
             if port.variadic:
                 names = []
                 while operands and isinstance(operands[0], (nl.Node, nl.Name)) and (
-                    len(operands) > 1 or _name(operands[0]) not in self.circuit.params
+                    len(operands) > 1 or _name(operands[0]) not in self.params
                 ):
                     op = operands.pop(0)
-                    names.append(_name(op))
+                    names.append(self.element_name(_name(op)))
                     spans.setdefault(port.names[0], op.span)
                 if len(names) < port.minimum:
                     raise InputError(
-                        f"{st.kind} {st.name} needs at least {port.minimum} {port.names[0]} names", st.name_span
+                        f"{st.kind} {label} needs at least {port.minimum} {port.names[0]} names", st.name_span
                     )
                 nodes[port.names[0]] = names
                 continue
             if not operands:
                 raise InputError(
-                    f"{st.kind} {st.name} needs its terminals: {_port_text(port)}", st.name_span
+                    f"{st.kind} {label} needs its terminals: {_port_text(port)}", st.name_span
                 )
             op = operands.pop(0)
             if len(port.names) == 2:
                 if not isinstance(op, nl.NodePair):
                     raise InputError(
-                        f"{st.kind} {st.name}: expected terminals as {_port_text(port)}", op.span
+                        f"{st.kind} {label}: expected terminals as {_port_text(port)}", op.span
                     )
-                nodes[port.names[0]], nodes[port.names[1]] = op.a, op.b
+                nodes[port.names[0]], nodes[port.names[1]] = self._node(op.a, op.a_span), self._node(op.b, op.b_span)
                 spans[port.names[0]], spans[port.names[1]] = op.a_span, op.b_span
             else:
                 if not isinstance(op, (nl.Node, nl.Name)):
                     raise InputError(
-                        f"{st.kind} {st.name}: expected a {port.domain} node name for {port.names[0]}", op.span
+                        f"{st.kind} {label}: expected a {port.domain} node name for {port.names[0]}", op.span
                     )
-                nodes[port.names[0]] = _name(op)
+                nodes[port.names[0]] = self._node(_name(op), op.span)
                 spans[port.names[0]] = op.span
         # What is left is the main value (at most one operand).
         if len(operands) > 1:
             raise InputError(
-                f"{st.kind} {st.name}: too many values; write extra settings as name=value "
+                f"{st.kind} {label}: too many values; write extra settings as name=value "
                 "or put an expression in parentheses", operands[1].span,
             )
         raw: dict[str, tuple[nl.Expr, Span]] = {}
         if operands:
             op = operands[0]
             if isinstance(op, nl.NodePair):
-                raise InputError(f"{st.kind} {st.name} has no more terminals; unexpected '->'", op.span)
+                raise InputError(f"{st.kind} {label} has no more terminals; unexpected '->'", op.span)
             if cls.main is None:
                 raise InputError(f"{st.kind} takes no value after its terminals; use name=value", op.span)
             value_expr = nl.Name(op.name, op.span) if isinstance(op, nl.Node) else op
@@ -400,12 +450,12 @@ class Elaborator:
                 port = keyword_ports[a.key]
                 if not isinstance(a.value, nl.Name):
                     raise InputError(f"{a.key}= takes a {port.domain} node name", a.value.span)
-                nodes[a.key] = a.value.name
+                nodes[a.key] = self._node(a.value.name, a.value.span)
                 spans[a.key] = a.value.span
                 continue
             if a.key in raw:
                 what = "the value after the terminals" if a.key == cls.main and raw[a.key][1] is not a.span else f"{a.key}="
-                raise InputError(f"{st.kind} {st.name}: {a.key} is given twice ({what})", a.span)
+                raise InputError(f"{st.kind} {label}: {a.key} is given twice ({what})", a.span)
             if cls.arg(a.key) is None:
                 known = [x.name for x in cls.arguments] + list(keyword_ports)
                 close = difflib.get_close_matches(a.key, known, n=1)
@@ -414,24 +464,28 @@ class Elaborator:
             raw[a.key] = (a.value, a.span)
         for name in keyword_ports:
             if name not in nodes:
-                raise InputError(f"{st.kind} {st.name} needs {name}=NODE", st.name_span)
+                raise InputError(f"{st.kind} {label} needs {name}=NODE", st.name_span)
         params: dict[str, Any] = {}
         for arg in cls.arguments:
             if arg.name in raw:
                 expr, _ = raw[arg.name]
-                params[arg.name] = self.argument(arg, expr, f"{arg.name} of {st.kind} {st.name}")
+                params[arg.name] = self.argument(arg, expr, f"{arg.name} of {st.kind} {label}")
                 spans[arg.name] = expr.span
             elif arg.required:
                 how = "as the value after its terminals" if arg.name == cls.main else f"as {arg.name}=..."
-                raise InputError(f"{st.kind} {st.name} needs its {arg.name} ({how})", st.name_span)
+                raise InputError(f"{st.kind} {label} needs its {arg.name} ({how})", st.name_span)
             else:
                 params[arg.name] = arg.default
-        try:
-            return cls(st.name, nodes, params, span=st.name_span, spans=spans)
-        except InputError:
-            raise
-        except (ValueError, TypeError) as exc:
-            raise InputError(f"{st.kind} {st.name}: {exc}", st.name_span) from None
+        return nodes, params, spans
+
+    def _node(self, name: str, span: Span | None) -> str:
+        if "." in name:
+            owner = name.split(".", 1)[0]
+            raise InputError(
+                f"{name!r} is a node inside block instance {owner}; connect to a block through its terminals",
+                span, hint="a terminal name cannot contain '.'",
+            )
+        return self.node_name(name)
 
     # -- signals --------------------------------------------------------------
     def signal(self, expr: nl.Expr) -> SignalRef:
@@ -510,6 +564,12 @@ class Circuit:
         self.measures: list[nl.MeasureStatement] = []
         self.checks: list[nl.CheckStatement] = []
         self.warnings: list[str] = []
+        #: Block definitions this circuit may use, kind -> ``mna.blocks.BlockDefinition``.
+        self.blocks: dict[str, Any] = {}
+        #: The parameters of every block instance, by hierarchical name (``S1.resistance``).
+        self.block_parameters: dict[str, Quantity] = {}
+        #: Values that replace block parameters when instances are expanded (``S1.resistance``).
+        self.block_overrides: dict[str, Quantity] = {}
         self._elaborator = Elaborator(self)
 
     def __repr__(self) -> str:
@@ -554,8 +614,16 @@ class Circuit:
         two-terminal kind); a last positional value that is not a node name
         may be given as ``value=``. Values are SI floats, quantity text
         (``"10 mH"``) or waveform objects; argument names use ``_`` for
-        ``-`` (``saturation_current=1e-14``). Returns the element.
+        ``-`` (``saturation_current=1e-14``). Returns the element, or None
+        for a use of a block (see :meth:`define`), whose elements are
+        named ``NAME.x``.
         """
+        block = self.blocks.get(kind)
+        if block is not None:
+            from .blocks import python_statement
+
+            self._elaborator.place(python_statement(block, name, terminals, value, arguments, self.params))
+            return None
         cls = lookup(kind)
         if cls is None:
             close = suggest(kind)
@@ -598,6 +666,13 @@ class Circuit:
             else:
                 params[arg.name] = arg.default
         return self.add_element(cls(name, nodes, params))
+
+    def define(self, block) -> None:
+        """Make a block (an :class:`mna.Block`) usable in :meth:`add` under its keyword."""
+        from .blocks import _add
+
+        definition = block.definition() if hasattr(block, "definition") else block
+        _add(self.blocks, definition)
 
     def set_parameter(self, name: str, value: Quantity | float | str) -> None:
         if isinstance(value, str):
@@ -787,16 +862,32 @@ def _python_value(arg: Arg, value: Any, what: str) -> Any:
 # Netlist -> Circuit.
 
 
-def elaborate(netlist: nl.Netlist) -> Circuit:
-    """Build a :class:`Circuit` from parsed statements (checks names and units)."""
+def elaborate(netlist: nl.Netlist, block_overrides: dict[str, Quantity] | None = None) -> Circuit:
+    """Build a :class:`Circuit` from parsed statements (checks names and units).
+
+    ``block_overrides`` replaces block parameters by hierarchical name
+    (``{"S1.resistance": Quantity(22.0, OHM)}``), whatever the use gives.
+    """
     name = Path(netlist.file).stem if netlist.file else "circuit"
     circuit = Circuit(name)
     circuit.file = netlist.file
+    circuit.block_overrides = dict(block_overrides or {})
     el = circuit._elaborator
     pending_records: list[nl.RecordStatement] = []
     seen_circuit: nl.CircuitStatement | None = None
+    from .blocks import gather_definitions
+
+    circuit.blocks.update(gather_definitions(netlist))  # may be used above their definition
     for st in netlist.statements:
+        if isinstance(st, (nl.BlockStatement, nl.BlocksFromStatement)):
+            continue
+        if isinstance(st, nl.ParameterStatement):
+            raise InputError(f"a 'parameter' line belongs inside a block; at the top level write "
+                             f"'let {st.name.replace('-', '_')} = ...'", st.span)
         if isinstance(st, nl.LetStatement):
+            if "." in st.name:
+                raise InputError(f"parameter name {st.name!r} cannot contain '.'", st.span,
+                                 hint="a dot joins a block instance's name and a name inside it, as in S1.Rs")
             if st.name in circuit.params:
                 raise InputError(f"parameter {st.name!r} is already defined", st.span)
             if st.name == "pi":
@@ -808,7 +899,7 @@ def elaborate(netlist: nl.Netlist) -> Circuit:
             seen_circuit = st
             circuit.name, circuit.title = st.name, st.title
         elif isinstance(st, nl.ElementStatement):
-            circuit.add_element(el.element(st), st.name_span)
+            el.place(st)
         elif isinstance(st, nl.SimulateStatement):
             circuit.analyses.append(el.analysis(st))
         elif isinstance(st, nl.RecordStatement):
@@ -817,6 +908,9 @@ def elaborate(netlist: nl.Netlist) -> Circuit:
             circuit.measures.append(st)
         elif isinstance(st, nl.CheckStatement):
             circuit.checks.append(st)
+    from .blocks import check_overrides
+
+    check_overrides(circuit)
     # Records may name elements defined further down the file.
     for st in pending_records:
         for q in st.quantities:

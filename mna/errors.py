@@ -68,7 +68,19 @@ class InputError(MnaError, ValueError):
         self.message = message
         self.span = span
         self.hint = hint
+        self.chain: tuple[tuple[str, Span], ...] = ()
         super().__init__(self.render())
+
+    def inside(self, what: str, span: Span | None) -> "InputError":
+        """Record that the error happened inside ``what`` (a block use at ``span``).
+
+        Called from the inside out; the rendering lists the outermost use
+        first, then each use within it, then the error itself.
+        """
+        if span is not None:
+            self.chain = ((what, span),) + self.chain
+            self.args = (self.render(),)
+        return self
 
     @property
     def line(self) -> int | None:
@@ -79,8 +91,13 @@ class InputError(MnaError, ValueError):
         return self.span.column if self.span else None
 
     def render(self) -> str:
+        parts = []
+        for what, use in getattr(self, "chain", ()):
+            parts.append(f"{use.where()}: in {what}")
+            if use.source_line is not None:
+                parts.append(use.context())
         head = f"{self.span.where()}: {self.message}" if self.span else self.message
-        parts = [head]
+        parts.append(head)
         if self.span and self.span.source_line is not None:
             parts.append(self.span.context())
         if self.hint:

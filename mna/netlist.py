@@ -209,7 +209,51 @@ class CheckStatement:
     text: str = ""
 
 
+@dataclass(slots=True)
+class BlockPort:
+    """One terminal of a block: a node (``g``) or a pair (``a -> b``), in a domain."""
+
+    names: tuple[str, ...]
+    domain: str  # "electrical" | "shaft" | "thermal"
+    spans: tuple[Span, ...]
+
+
+@dataclass(slots=True)
+class ParameterStatement:
+    """``parameter NAME = DEFAULT`` inside a block: a value its use may set."""
+
+    name: str
+    value: Expr
+    span: Span
+
+
+@dataclass(slots=True)
+class BlockStatement:
+    """``block KIND TERMINALS`` and the statements indented under it.
+
+    ``body`` holds the indented statements (parameters, lets, elements and
+    uses of other blocks), parsed like top-level lines.
+    """
+
+    kind: str
+    ports: tuple[BlockPort, ...]
+    body: tuple["Statement", ...]
+    span: Span  # of the kind word
+    file: str | None = None
+
+
+@dataclass(slots=True)
+class BlocksFromStatement:
+    """``blocks from "PATH"``: the block definitions of another file."""
+
+    path: str
+    span: Span
+
+
 Statement = Union[
+    BlockStatement,
+    ParameterStatement,
+    BlocksFromStatement,
     ElementStatement,
     LetStatement,
     CircuitStatement,
@@ -406,6 +450,28 @@ class _Builder(Transformer):
         name, value = children
         return MeasureStatement(str(name), value, self.span(name), text=statement_text(self._text, "measure"))
 
+    def block_stmt(self, children):
+        kind, *items = children
+        ports = tuple(_block_port(item, "electrical") if not isinstance(item, BlockPort) else item
+                      for item in items if not isinstance(item, _Comma))
+        return BlockStatement(str(kind), ports, (), self.span(kind), self._file)
+
+    def shaft_port(self, children):
+        (item,) = children
+        return _block_port(item, "shaft")
+
+    def thermal_port(self, children):
+        (item,) = children
+        return _block_port(item, "thermal")
+
+    def parameter_stmt(self, children):
+        name, value = children
+        return ParameterStatement(str(name), value, self.span(name))
+
+    def blocks_from_stmt(self, children):
+        (path,) = children
+        return BlocksFromStatement(str(path)[1:-1], self.span(path))
+
     def check_compare(self, children):
         left, op, right = children
         return CheckStatement(str(op), left, right, span_of(left), text=statement_text(self._text, "check"))
@@ -414,6 +480,12 @@ class _Builder(Transformer):
         left, tolerance, target = children
         return CheckStatement("within", left, target, span_of(left), tolerance=tolerance,
                               text=statement_text(self._text, "check"))
+
+
+def _block_port(item, domain: str) -> BlockPort:
+    if isinstance(item, NodePair):
+        return BlockPort((item.a, item.b), domain, (item.a_span, item.b_span))
+    return BlockPort((item.name,), domain, (item.span,))
 
 
 class _Comma:
@@ -471,7 +543,8 @@ _FAST = re.compile(
     r"[ \t]*(?:#[^\n]*)?"
 )
 _FAST_ARG = re.compile(rf"([a-z][a-z0-9]*(?:-[a-z0-9]+)*)[ \t]*=[ \t]*({_Q})")
-_STATEMENT_WORDS = frozenset({"let", "circuit", "simulate", "record", "measure", "check"})
+_STATEMENT_WORDS = frozenset({"let", "circuit", "simulate", "record", "measure", "check",
+                              "block", "blocks", "parameter"})
 
 
 def _fast_element(chunk: _Chunk, file: str | None, lines: list[str]) -> ElementStatement | None:
@@ -606,22 +679,84 @@ def parse_netlist(text: str, file: str | None = None) -> Netlist:
         text = text[1:]
     lines = text.splitlines()
     netlist = Netlist(file=file, text=text)
-    parser = _parser()
     for chunk in split_statements(text):
+        if _BLOCK_HEAD.match(chunk.text):
+            netlist.statements.append(_parse_block(chunk, file, lines))
+            continue
         statement = _fast_element(chunk, file, lines)
         if statement is None:
-            try:
-                tree = parser.parse(chunk.text)
-            except lark.exceptions.UnexpectedInput as exc:
-                raise _syntax_error(exc, chunk, file, lines) from None
-            try:
-                statement = _Builder(chunk, file, lines).transform(tree)
-            except lark.exceptions.VisitError as exc:
-                # An error of ours raised while building (a bad unit) comes
-                # wrapped by lark; raise it as it is.
-                raise exc.orig_exc from None
+            statement = _parse_chunk(chunk, file, lines)
         netlist.statements.append(statement)
     return netlist
+
+
+def _parse_chunk(chunk: _Chunk, file: str | None, lines: list[str]) -> Statement:
+    """One statement's text -> its statement object (through the grammar)."""
+    try:
+        tree = _parser().parse(chunk.text)
+    except lark.exceptions.UnexpectedInput as exc:
+        raise _syntax_error(exc, chunk, file, lines) from None
+    try:
+        return _Builder(chunk, file, lines).transform(tree)
+    except lark.exceptions.VisitError as exc:
+        # An error of ours raised while building (a bad unit) comes
+        # wrapped by lark; raise it as it is.
+        raise exc.orig_exc from None
+
+
+_BLOCK_HEAD = re.compile(r"block[ \t]")
+
+
+def _parse_block(chunk: _Chunk, file: str | None, lines: list[str]) -> BlockStatement:
+    """A block: its header line, then the statements indented under it.
+
+    The first indented line sets the body's indentation; a line indented
+    exactly that much starts a statement, a line indented deeper continues
+    it (the file's own continuation rule, one level in).
+    """
+    raw = chunk.text.split("\n")
+    header = _parse_chunk(_Chunk(raw[0], chunk.first_line), file, lines)
+    body: list[Statement] = []
+    indent: str | None = None
+    current: list[str] = []
+    first = 0
+    for offset, line in enumerate(raw[1:], start=1):
+        number = chunk.first_line + offset
+        if not line.strip() or line.lstrip().startswith("#"):
+            if current:
+                current.append(line)
+            continue
+        lead = line[: len(line) - len(line.lstrip())]
+        if indent is None:
+            indent = lead
+        if lead == indent:
+            if current:
+                body.append(_body_statement(_Chunk("\n".join(current), first), file, lines))
+            current, first = [line], number
+        elif lead.startswith(indent) and current:
+            current.append(line)
+        else:
+            raise NetlistSyntaxError(
+                f"this line is indented differently from the lines above it in block {header.kind}",
+                Span(number, len(lead) + 1, None, file, line),
+                hint=f"indent every statement of a block alike ({len(indent)} columns here); "
+                     "indent continuation lines deeper",
+            )
+    if current:
+        body.append(_body_statement(_Chunk("\n".join(current), first), file, lines))
+    header.body = tuple(body)
+    return header
+
+
+def _body_statement(chunk: _Chunk, file: str | None, lines: list[str]) -> Statement:
+    if _BLOCK_HEAD.match(chunk.text.lstrip()):
+        line = lines[chunk.first_line - 1]
+        raise NetlistSyntaxError(
+            "a block cannot be defined inside another block",
+            Span(chunk.first_line, len(line) - len(line.lstrip()) + 1, None, file, line),
+            hint="define it at the top level (column 1) and use it inside this one",
+        )
+    return _parse_chunk(chunk, file, lines)
 
 
 def parse_file(path: str | Path) -> Netlist:
