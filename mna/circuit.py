@@ -37,7 +37,7 @@ from . import netlist as nl
 from .elements.base import ELEMENT, ELECTRICAL, REFERENCE, SHAFT, THERMAL, Arg, Element
 from .elements.registry import lookup, suggest
 from .errors import InputError, NetlistSyntaxError, Span, UnitsError, UnknownNameError
-from .expressions import evaluate
+from .expressions import FUNCTIONS, children, evaluate, walk
 from .units import (
     AMPERE,
     DIMENSIONLESS,
@@ -54,39 +54,11 @@ from .units import (
     refuse_celsius,
 )
 from .units import UnitError
+from .values import QUANTITIES, AnalysisRequest, SignalRef, node_quantity
 from .waveforms import Constant, Piecewise, Pulse, Sine, Step, Waveform
 
 # --------------------------------------------------------------------------
 # Requests the file makes: analyses, recorded signals.
-
-
-@dataclass(frozen=True)
-class SignalRef:
-    """A circuit quantity named in ``record``, ``measure`` or ``check``.
-
-    ``label`` is the text used as the CSV heading (``v(sw)``, ``i(Lcoil)``).
-    ``target`` is ``"node"`` (``v(n)``, ``w(shaft)``), ``"across"``
-    (``v(a, b)``) or ``"element"`` (``i(R1)``, ``torque(M1)``).
-    """
-
-    quantity: str
-    names: tuple[str, ...]
-    target: str
-    dimension: Dimension
-    span: Span | None = None
-
-    @property
-    def label(self) -> str:
-        return f"{self.quantity}({', '.join(self.names)})"
-
-
-@dataclass
-class AnalysisRequest:
-    """A ``simulate`` line: the analysis and its settings (SI values)."""
-
-    analysis: str  # "dc" | "transient"
-    settings: dict[str, Any] = field(default_factory=dict)
-    span: Span | None = None
 
 
 TRANSIENT_SETTINGS: dict[str, Arg] = {
@@ -161,28 +133,30 @@ def _is_hertz(text: str) -> bool:
     return any(tok[:-2] in PREFIXES or tok == "Hz" for tok in _UNIT_TOKEN.findall(unit) if tok.endswith("Hz"))
 
 
-def _hertz_literal(expr: nl.Expr) -> nl.Number | None:
+def _speed_parts(expr: nl.Expr) -> tuple[nl.Expr, ...]:
+    """The parts of a value that carry an angular speed: a waveform's own
+    ``frequency=`` (and its times) are not speeds and are not looked at."""
+    if isinstance(expr, nl.Call) and expr.func in _WAVEFORM_ARGS:
+        spec = _WAVEFORM_ARGS[expr.func]
+        return tuple(v for k, v, _ in expr.named if spec.get(k, ("",))[0] == "value")
+    if isinstance(expr, nl.Call) and expr.func == "piecewise":
+        return tuple(a.value for a in expr.args if isinstance(a, nl.Pair))
+    return children(expr)
+
+
+def _hertz_literal(expr: nl.Expr, definitions: dict[str, nl.Expr],
+                   via: nl.Name | None = None) -> tuple[nl.Number, nl.Name | None] | None:
     """The first literal in hertz inside an angular-speed value, or None.
 
-    A waveform's own ``frequency=`` (and its times) are not speeds and are
-    not looked at; only the parts that carry the argument's value are.
+    A ``let`` parameter used in the value is followed to its definition, so
+    ``let f = 50 Hz`` then ``speed=(2 * f)`` is caught; the second item is
+    the parameter name (at its use) through which the literal was reached.
     """
-    if isinstance(expr, nl.Number):
-        return expr if _is_hertz(expr.text) else None
-    if isinstance(expr, nl.BinaryOp):
-        return _hertz_literal(expr.left) or _hertz_literal(expr.right)
-    if isinstance(expr, nl.Negate):
-        return _hertz_literal(expr.operand)
-    if isinstance(expr, nl.Call):
-        if expr.func in _WAVEFORM_ARGS:
-            spec = _WAVEFORM_ARGS[expr.func]
-            parts = [v for k, v, _ in expr.named if spec.get(k, ("",))[0] == "value"]
-        elif expr.func == "piecewise":
-            parts = [a.value for a in expr.args if isinstance(a, nl.Pair)]
-        else:
-            parts = list(expr.args) + [v for _, v, _ in expr.named]
-        for part in parts:
-            found = _hertz_literal(part)
+    for node in walk(expr, _speed_parts):
+        if isinstance(node, nl.Number) and _is_hertz(node.text):
+            return node, via
+        if isinstance(node, nl.Name) and node.name in definitions:
+            found = _hertz_literal(definitions[node.name], definitions, via or node)
             if found is not None:
                 return found
     return None
@@ -237,6 +211,9 @@ class Elaborator:
         self.circuit.add_element(self.element(st), st.name_span)
 
     # -- values ---------------------------------------------------------------
+    def _value(self, expr: nl.Expr) -> Quantity:
+        return evaluate(expr, self.params)
+
     def quantity(self, expr: nl.Expr, want: Dimension | None, what: str) -> float:
         q = evaluate(expr, self.params)
         if not self._absolute:
@@ -274,7 +251,7 @@ class Elaborator:
                         raise InputError(f"{expr.func}() needs {key}=", expr.span)
                     values[key] = default
             return self._build_waveform(expr.func, values, expr.span)
-        if isinstance(expr, nl.Call) and lookup(expr.func) is None and expr.func not in ("sqrt", "exp", "ln", "log10", "sin", "cos", "tan", "atan", "abs", "min", "max"):
+        if isinstance(expr, nl.Call) and lookup(expr.func) is None and expr.func not in FUNCTIONS:
             raise UnknownNameError(
                 f"unknown waveform {expr.func}()", expr.span,
                 hint="waveforms are step(...), pwm(...), sine(...) and piecewise(...)",
@@ -334,9 +311,13 @@ class Elaborator:
 
     def _angular_argument(self, arg: Arg, expr: nl.Expr, what: str) -> Any:
         if arg.angular:
-            hertz = _hertz_literal(expr)
-            if hertz is not None:
-                raise UnitsError(_hertz_message(what, hertz.text), hertz.span)
+            found = _hertz_literal(expr, self.circuit.definitions)
+            if found is not None:
+                literal, via = found
+                if via is None:
+                    raise UnitsError(_hertz_message(what, literal.text), literal.span)
+                raise UnitsError(_hertz_message(what, f"{via.name} = {literal.text} (line {literal.span.line})"),
+                                 via.span)
             try:
                 return self._argument(arg, expr, what)
             except UnitsError as exc:
@@ -351,7 +332,7 @@ class Elaborator:
         elif arg.kind == "choice":
             return self.choice(expr, arg, what)
         elif arg.kind == "expr":
-            return expr
+            return arg.resolve(expr, self._value) if arg.resolve is not None else expr
         else:  # pragma: no cover - a kind declared a bad Arg
             raise TypeError(f"unknown argument kind {arg.kind!r}")
         if arg.positive and not value > 0:
@@ -522,9 +503,7 @@ class Elaborator:
             from .analyses.settings import check_request
 
             self.circuit.warnings.extend(check_request(settings, st.analysis_span))
-        request = AnalysisRequest(st.analysis, settings, st.analysis_span)
-        request.spans = spans  # type: ignore[attr-defined]
-        return request
+        return AnalysisRequest(st.analysis, settings, st.analysis_span, spans)
 
 
 def _a(word: str) -> str:
@@ -559,6 +538,7 @@ class Circuit:
         self.nodes: dict[str, str] = {node: domain for domain, node in REFERENCE.items()}
         self.node_spans: dict[str, Span | None] = {}
         self.params: dict[str, Quantity] = {}
+        self.definitions: dict[str, nl.Expr] = {}  # let NAME -> its expression, as written
         self.analyses: list[AnalysisRequest] = []
         self.records: list[SignalRef] = []
         self.measures: list[nl.MeasureStatement] = []
@@ -660,7 +640,7 @@ class Circuit:
                 raise UnknownNameError(f"{kind} has no argument {key!r}")
         for arg in cls.arguments:
             if arg.name in given:
-                params[arg.name] = _python_value(arg, given[arg.name], f"{arg.name} of {kind} {name}")
+                params[arg.name] = _python_value(arg, given[arg.name], f"{arg.name} of {kind} {name}", self.params)
             elif arg.required:
                 raise InputError(f"{kind} {name} needs {arg.name}")
             else:
@@ -692,48 +672,53 @@ class Circuit:
 
     # -- signal references ------------------------------------------------------
     def signal_ref(self, expr: nl.Expr) -> SignalRef:
-        """Resolve ``v(sw)``, ``i(L1)``, ``v(a, b)`` ... against this circuit."""
-        from .units import VOLT
-
-        if not isinstance(expr, nl.Call) or expr.named or not all(isinstance(a, nl.Name) for a in expr.args):
+        """Resolve ``v(sw)``, ``i(L1)``, ``v(a -> b)``, ``v(R1)`` ... against this circuit."""
+        if (not isinstance(expr, nl.Call) or expr.named or len(expr.args) != 1
+                or not isinstance(expr.args[0], (nl.Name, nl.NodePair))):
+            if (isinstance(expr, nl.Call) and not expr.named and len(expr.args) == 2
+                    and all(isinstance(a, nl.Name) for a in expr.args)):
+                a, b = (x.name for x in expr.args)
+                raise InputError(f"the voltage between two nodes is written with an arrow: "
+                                 f"{expr.func}({a} -> {b}), not {expr.func}({a}, {b})", expr.span,
+                                 hint=f"write {expr.func}({a} -> {b}): the voltage of {a} measured from {b}")
             raise InputError(
-                "expected a circuit quantity such as v(node), v(a, b), i(ELEMENT) or p(ELEMENT)",
+                "expected a circuit quantity such as v(node), v(a -> b), i(ELEMENT) or p(ELEMENT)",
                 getattr(expr, "span", None),
             )
-        names = tuple(a.name for a in expr.args)
         q = expr.func
-        if q == "v" and len(names) == 2:
-            for n, a in zip(names, expr.args):
-                self._require_node(n, ELECTRICAL, a.span)
-            return SignalRef("v", names, "across", VOLT, expr.span)
-        if len(names) != 1:
-            raise InputError(f"{q}() takes one name", expr.span)
-        (target,) = names
-        node_quantities = {"v": (ELECTRICAL, VOLT)}
-        node_quantities.update(_shaft_quantities())
-        node_quantities["T"] = (THERMAL, KELVIN)
-        if q in node_quantities and target in self.nodes and self.nodes[target] == node_quantities[q][0]:
-            return SignalRef(q, names, "node", node_quantities[q][1], expr.span)
+        (arg,) = expr.args
+        if isinstance(arg, nl.NodePair):
+            if q != "v":
+                raise InputError(f"{q}() takes one name; only v() takes two nodes, v(a -> b)", expr.span)
+            self._require_node(arg.a, ELECTRICAL, arg.a_span)
+            self._require_node(arg.b, ELECTRICAL, arg.b_span)
+            return SignalRef("v", (arg.a, arg.b), "across", QUANTITIES["v"].dimension, expr.span)
+        target = arg.name
+        on_node = node_quantity(q)
+        if on_node is not None and self.nodes.get(target) == on_node.domain:
+            return SignalRef(q, (target,), "node", on_node.dimension, expr.span)
         element = self.elements.get(target)
         if element is not None:
             if q not in element.outputs:
                 have = ", ".join(f"{k}({target})" for k in element.outputs) or "nothing"
+                close = difflib.get_close_matches(q, list(element.outputs), n=1)
                 raise UnknownNameError(
-                    f"{element.keyword} {target} has no quantity {q}(); it offers {have}", expr.span
-                )
-            return SignalRef(q, names, "element", element.outputs[q], expr.span)
-        if q in node_quantities:
-            domain = node_quantities[q][0]
-            self._require_node(target, domain, expr.args[0].span)
-        if q in ("i", "p", "torque", "emf", "pmech", "torque_out"):
+                    f"{element.keyword} {target} has no quantity {q}(); it offers {have}", expr.span,
+                    hint=f"did you mean {close[0]}({target})?" if close else None)
+            return SignalRef(q, (target,), "element", element.outputs[q], expr.span)
+        if on_node is not None:
+            self._require_node(target, on_node.domain, arg.span)
+        if q in _element_quantities():
             close = difflib.get_close_matches(target, list(self.elements), n=1)
             raise UnknownNameError(
-                f"no element named {target!r}", expr.args[0].span,
+                f"no element named {target!r}", arg.span,
                 hint=f"did you mean {close[0]!r}?" if close else None,
             )
+        names = sorted(set(QUANTITIES) | _element_quantities())
+        close = difflib.get_close_matches(q, names, n=1)
         raise UnknownNameError(f"unknown quantity {q}()", expr.span,
-                               hint="quantities: v(node), v(a, b), i(E), p(E), w(shaft), rpm(shaft), "
-                                    "angle(shaft), torque(E), emf(E), pmech(E), T(thermal node)")
+                               hint=f"did you mean {close[0]}({target})?" if close else
+                               "quantities: " + ", ".join(f"{n}()" for n in names))
 
     def _require_node(self, node: str, domain: str, span: Span | None) -> None:
         have = self.nodes.get(node)
@@ -791,29 +776,32 @@ class Circuit:
         return transient(self, settings, records)
 
     def run(self) -> list:
-        """Run the file's own ``simulate`` lines, in order; returns their results."""
-        out = []
-        for request in self.analyses:
-            if request.analysis == "dc":
-                out.append(self.dc())
-            else:
-                from .analyses.transient import transient
+        """Run the file's own ``simulate`` lines, in order; returns their results.
 
-                out.append(transient(self, dict(request.settings), None))
-        return out
+        The same runner as ``mna run`` and ``mna check``
+        (:func:`mna.measure.run_and_check`); a failed analysis raises its
+        :class:`~mna.errors.SimulationError`.
+        """
+        from .measure import run_and_check
+
+        outcome = run_and_check(self)
+        if outcome.failure is not None:
+            raise outcome.failure
+        return outcome.results
 
 
-def _shaft_quantities() -> dict[str, tuple[str, Dimension]]:
-    from .units import ANGULAR_SPEED
+def _element_quantities() -> set[str]:
+    """Every quantity some element kind offers (built-in and plugin kinds)."""
+    from .elements.registry import element_kinds
 
-    return {"w": (SHAFT, ANGULAR_SPEED), "rpm": (SHAFT, ANGULAR_SPEED), "angle": (SHAFT, DIMENSIONLESS)}
+    return {q for cls in element_kinds().values() for q in cls.outputs}
 
 
 def _seconds(value: float | str, what: str) -> float:
     return _python_value(Arg(what, SECOND), value, what)
 
 
-def _python_value(arg: Arg, value: Any, what: str) -> Any:
+def _python_value(arg: Arg, value: Any, what: str, params: dict[str, Quantity] | None = None) -> Any:
     """A value given from Python -> what the element expects."""
     if arg.kind == "waveform":
         if isinstance(value, Waveform):
@@ -826,7 +814,9 @@ def _python_value(arg: Arg, value: Any, what: str) -> Any:
     if arg.kind == "expr":
         if isinstance(value, str):
             st = nl.parse_netlist(f"let x = {value}").statements[0]  # (names start with a letter)
-            return st.value
+            value = st.value
+        if arg.resolve is not None and isinstance(value, nl.Expr.__args__[:-1]):
+            return arg.resolve(value, lambda e: evaluate(e, params or {}))
         return value
     if isinstance(value, str):
         if arg.angular and _is_hertz(value):
@@ -893,6 +883,7 @@ def elaborate(netlist: nl.Netlist, block_overrides: dict[str, Quantity] | None =
             if st.name == "pi":
                 raise InputError("'pi' is a built-in constant and cannot be redefined", st.span)
             circuit.params[st.name] = evaluate(st.value, circuit.params)
+            circuit.definitions[st.name] = st.value
         elif isinstance(st, nl.CircuitStatement):
             if seen_circuit is not None:
                 raise InputError("a file describes one circuit: only one 'circuit' line", st.span)

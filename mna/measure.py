@@ -47,11 +47,12 @@ import numpy as np
 from . import netlist as nl
 from . import waveform_math as wm
 from .errors import InputError, MeasurementError, SimulationError, UnitsError, UnknownNameError
-from .expressions import CONSTANTS, FUNCTIONS, evaluate
+from .expressions import CONSTANTS, FUNCTIONS, Samples, children, evaluate, is_quantity_call, walk
 from .units import DIMENSIONLESS, JOULE, SECOND, Dimension, Quantity, describe, format_si, unit_symbol
+from .values import RPM, SignalRef, stored_per_si
 
 if TYPE_CHECKING:  # pragma: no cover
-    from .circuit import Circuit, SignalRef
+    from .circuit import Circuit
     from .results import OperatingPoint, Waveforms
 
 __all__ = [
@@ -102,7 +103,6 @@ MEASUREMENTS: dict[str, _Spec] = {
 }
 
 _DIRECTIONS = ("rising", "falling", "either")
-_RPM = 2.0 * math.pi / 60.0  # rad/s per rpm
 # A window end this far outside the run (relative to its length) is rounding
 # (the same allowance as mna.waveform_math).
 _END_TOLERANCE = 1e-9
@@ -113,15 +113,8 @@ class _NoValue(Exception):
 
 
 def _is_signal(expr: nl.Expr) -> bool:
-    """True for a circuit quantity such as ``v(out)``, ``v(a, b)``, ``i(L1)``."""
-    return (
-        isinstance(expr, nl.Call)
-        and expr.func not in FUNCTIONS
-        and expr.func not in MEASUREMENTS
-        and not expr.named
-        and bool(expr.args)
-        and all(isinstance(a, nl.Name) for a in expr.args)
-    )
+    """True for a circuit quantity such as ``v(out)``, ``v(a -> b)``, ``i(L1)``."""
+    return is_quantity_call(expr) and expr.func not in MEASUREMENTS
 
 
 def _is_measurement(call: nl.Call) -> bool:
@@ -140,26 +133,28 @@ def _walk(expr: nl.Expr) -> Iterator[tuple[str, Any]]:
     ``("signal", Call)`` for a circuit quantity and ``("energy", Call)``
     for ``energy(E, ...)``.
     """
-    if isinstance(expr, nl.Name):
-        yield "name", expr
-    elif isinstance(expr, (nl.BinaryOp, nl.Compare)):
-        yield from _walk(expr.left)
-        yield from _walk(expr.right)
-    elif isinstance(expr, nl.Negate):
-        yield from _walk(expr.operand)
-    elif isinstance(expr, nl.Call):
-        if _is_signal(expr):
-            yield "signal", expr
-            return
-        args = list(expr.args)
-        if expr.func == "energy" and args and isinstance(args[0], nl.Name):
-            yield "energy", expr
-            args = args[1:]
-        for arg in args:
-            yield from _walk(arg)
-        for key, value, _ in expr.named:
-            if key != "direction":
-                yield from _walk(value)
+    for node in walk(expr, _enter):
+        if isinstance(node, nl.Name):
+            yield "name", node
+        elif _is_signal(node):
+            yield "signal", node
+        elif _is_energy(node):
+            yield "energy", node
+
+
+def _is_energy(expr: nl.Expr) -> bool:
+    return isinstance(expr, nl.Call) and expr.func == "energy" and bool(expr.args) and isinstance(expr.args[0], nl.Name)
+
+
+def _enter(expr: nl.Expr) -> tuple[nl.Expr, ...]:
+    """What :func:`_walk` looks inside: not a signal's names, an energy call's
+    element name, nor the word of ``direction=``."""
+    if not isinstance(expr, nl.Call):
+        return children(expr)
+    if _is_signal(expr):
+        return ()
+    args = expr.args[1:] if _is_energy(expr) else expr.args
+    return (*args, *(value for key, value, _ in expr.named if key != "direction"))
 
 
 def _statements(circuit: "Circuit") -> list[nl.MeasureStatement | nl.CheckStatement]:
@@ -216,9 +211,10 @@ class _Calls:
     ``until``, the end of the last transient run (s).
     """
 
-    def __init__(self, circuit: "Circuit", waves: "Waveforms | None" = None,
+    def __init__(self, circuit: "Circuit", scope: Mapping[str, Quantity], waves: "Waveforms | None" = None,
                  op: "OperatingPoint | None" = None, *, dry: bool = False):
         self.circuit = circuit
+        self.scope = scope  # parameters and the measurements defined so far
         self.waves = waves
         self.op = op
         self.dry = dry
@@ -309,7 +305,7 @@ class _Calls:
     def _waveform_ref(self, call: nl.Call, sub: Callable[[nl.Expr], Quantity]) -> "SignalRef | _Derived":
         first = call.args[0] if call.args else None
         if first is not None and not _is_signal(first) and call.func != "energy" and _has_signal(first):
-            return _Derived(first, self, sub)
+            return _Derived(first, self)
         if call.func == "energy":
             if not isinstance(first, nl.Name):
                 raise InputError("energy() takes an element name first, like energy(R1, from=2 ms)",
@@ -322,7 +318,7 @@ class _Calls:
         if first is None or not _is_signal(first):
             raise InputError(
                 f"{call.func}() measures a waveform: its first argument is a circuit quantity such as "
-                "v(node), v(a, b), i(ELEMENT), p(ELEMENT) or w(shaft), or an expression of them "
+                "v(node), v(a -> b), i(ELEMENT), p(ELEMENT) or w(shaft), or an expression of them "
                 "such as i(F1)^2",
                 first.span if first is not None else call.span,
             )
@@ -418,68 +414,37 @@ class _Derived:
     """A waveform computed sample by sample from circuit quantities:
     ``i(F1)^2`` (for the Joule integral I^2*t), ``v(a) * i(L1)``, ``abs(i(L1))``.
 
-    Arithmetic follows the parameter rules (units propagate and are
-    checked); parameters and earlier measures are constants; a measurement
-    call inside is not allowed (measure it first, then use its name).
+    It is evaluated by :func:`mna.expressions.evaluate` with circuit
+    quantities as :class:`~mna.expressions.Samples`, so arithmetic follows
+    the parameter rules (units propagate and are checked); parameters and
+    earlier measures are constants; a measurement call inside is not
+    allowed (measure it first, then use its name).
     """
 
     quantity = ""  # no special display unit
 
-    def __init__(self, expr: nl.Expr, calls: "_Calls", sub: Callable[[nl.Expr], Quantity]):
+    def __init__(self, expr: nl.Expr, calls: "_Calls"):
         self.expr = expr
         self.calls = calls
-        self.sub = sub
         self.label = _expr_text(expr)
         # Evaluating on one NaN sample gives the dimension and checks the units.
-        _, self.dimension = self._eval(expr, lambda ref: np.full(1, math.nan))
+        self.dimension = self._evaluate(lambda ref: np.full(1, math.nan)).dim
 
     def values(self, waves: "Waveforms") -> np.ndarray:
-        v, _ = self._eval(self.expr, lambda ref: _to_si(ref, waves[ref.label]))
-        return np.broadcast_to(np.asarray(v, dtype=float), waves.time.shape)
+        v = self._evaluate(lambda ref: _to_si(ref, waves[ref.label]))
+        return np.broadcast_to(np.asarray(v.value, dtype=float), waves.time.shape)
 
-    def _eval(self, expr: nl.Expr, samples) -> tuple[Any, Dimension]:
-        if isinstance(expr, nl.Call) and _is_signal(expr):
-            ref = self.calls.circuit.signal_ref(expr)
-            return samples(ref), ref.dimension
-        if isinstance(expr, nl.BinaryOp):
-            a, da = self._eval(expr.left, samples)
-            b, db = self._eval(expr.right, samples)
-            if expr.op in "+-":
-                if da != db:
-                    raise UnitsError(f"cannot {'add' if expr.op == '+' else 'subtract'} {describe(da)} and "
-                                     f"{describe(db)}", expr.span)
-                return (a + b if expr.op == "+" else a - b), da
-            if expr.op == "*":
-                return a * b, da * db
-            if expr.op == "/":
-                return a / b, da / db
-            if db != DIMENSIONLESS or np.ndim(b):
-                raise UnitsError("an exponent must be a plain number, not a waveform", expr.right.span)
-            power = float(b)
-            exponent = int(power) if power.is_integer() else power
-            if da != DIMENSIONLESS and not isinstance(exponent, int):
-                raise UnitsError("a waveform with a unit takes whole-number powers only", expr.right.span)
-            return a ** power, da ** exponent
-        if isinstance(expr, nl.Negate):
-            a, da = self._eval(expr.operand, samples)
-            return -a, da
-        if isinstance(expr, nl.Call) and expr.func in ("abs", "sqrt") and len(expr.args) == 1 and not expr.named:
-            a, da = self._eval(expr.args[0], samples)
-            if expr.func == "abs":
-                return np.abs(a), da
-            return np.sqrt(a), da ** nl_fraction_half()
-        if isinstance(expr, nl.Call) and (expr.func in MEASUREMENTS or expr.func in FUNCTIONS) and _has_signal(expr):
-            raise InputError(
-                f"{expr.func}() inside a waveform expression: measure it on its own line first, "
-                "then use its name", expr.span)
-        q = self.sub(expr)
-        return q.value, q.dim
+    def _evaluate(self, samples: Callable[[SignalRef], np.ndarray]) -> Quantity | Samples:
+        def handler(call: nl.Call, sub: Callable[[nl.Expr], Any]) -> Any:
+            if _is_signal(call):
+                ref = self.calls.circuit.signal_ref(call)
+                return Samples(samples(ref), ref.dimension)
+            if _is_measurement(call):
+                raise InputError(f"{call.func}() inside a waveform expression: measure it on its own "
+                                 "line first, then use its name", call.span)
+            return self.calls(call, sub)
 
-
-def nl_fraction_half():
-    from fractions import Fraction
-
-    return Fraction(1, 2)
+        return evaluate(self.expr, self.calls.scope, handler)
 
 
 def _expr_text(expr: nl.Expr) -> str:
@@ -510,14 +475,16 @@ def _usage(func: str, spec: _Spec) -> str:
     return f"write {''.join(parts)})" + (optional[func == "crossing"] if spec.windowed else "")
 
 
-def _hint(ref: "SignalRef") -> str:
-    """The display unit for values of a signal's own dimension."""
-    return {"rpm": "rpm", "w": "rad/s", "torque": "N*m"}.get(ref.quantity, "")
+def _hint(ref: "SignalRef | _Derived") -> str:
+    """The display unit for values of a signal's own dimension ("" for the SI symbol)."""
+    shown = ref.unit if isinstance(ref, SignalRef) else ""
+    return shown if shown in ("rpm", "rad/s", "N*m") else ""
 
 
 def _to_si(ref: "SignalRef", values: np.ndarray) -> np.ndarray:
     """Signal samples in SI base units (``rpm(x)`` is stored in rpm)."""
-    return values * _RPM if ref.quantity == "rpm" else values
+    factor = stored_per_si(ref.quantity)
+    return values if factor == 1.0 else values / factor
 
 
 def _result_dimension(spec: _Spec, ref: "SignalRef") -> Dimension:
@@ -612,8 +579,8 @@ def validate(circuit: "Circuit") -> None:
     """
     if not circuit.measures and not circuit.checks:
         return
-    calls = _Calls(circuit, dry=True)
     scope: dict[str, Quantity] = dict(circuit.params)
+    calls = _Calls(circuit, scope, dry=True)
     measures = {m.name: m for m in circuit.measures}
     defined: dict[str, int] = {}
     for st in _statements(circuit):
@@ -746,8 +713,8 @@ def evaluate_checks(circuit: "Circuit", results: Sequence[Any]) -> CheckReport:
     op = next((r for r in reversed(results) if isinstance(r, OperatingPoint)), None)
     if waves is not None and waves.status != "ok":
         raise SimulationError(f"the transient run failed ({waves.message}); checks need a whole run")
-    calls = _Calls(circuit, waves, op)
     scope: dict[str, Quantity] = dict(circuit.params)
+    calls = _Calls(circuit, scope, waves, op)
     hints: dict[str, str] = {}  # measurement name -> display unit
     missing: dict[str, str] = {}  # measurement name -> why it has no value
     report = CheckReport()
@@ -874,7 +841,7 @@ def _show(value: float, dim: Dimension, hint: str = "", *, signed: bool = False,
     """A value (SI) as printed: ``2.303 ms``, ``2865 rpm``, ``4.32 %``."""
     sign = "+" if signed and value > 0 else ""
     if hint == "rpm":
-        return f"{sign}{value / _RPM:.{digits}g} rpm"
+        return f"{sign}{value / RPM:.{digits}g} rpm"
     if hint == "%" and dim == DIMENSIONLESS:
         return f"{sign}{value * 100:.{digits}g} %"
     if hint == "rad/s":

@@ -108,7 +108,7 @@ class Compare:
     span: Span
 
 
-Expr = Union[Number, Name, Word, String, Call, Pair, BinaryOp, Negate, Compare]
+Expr = Union[Number, Name, Word, String, Call, Pair, BinaryOp, Negate, Compare, "NodePair"]
 
 # --------------------------------------------------------------------------
 # Statements.
@@ -124,7 +124,8 @@ class Node:
 
 @dataclass(slots=True)
 class NodePair:
-    """A two-terminal connection ``a -> b`` (reference direction a to b)."""
+    """``a -> b``: a two-terminal connection (reference direction a to b), or
+    the pair of nodes of a voltage between them, ``v(a -> b)``."""
 
     a: str
     b: str

@@ -97,19 +97,23 @@ class Waveforms:
 
 
 def _normal(label: str) -> str:
-    """``v( a ,b)`` -> ``v(a, b)``: the canonical spelling of a label."""
+    """``v( a->b )`` -> ``v(a -> b)``: the canonical spelling of a label.
+
+    The refused comma form ``v(a, b)`` becomes ``v(a, b)``, which no result
+    holds; the did-you-mean of :func:`_missing` then shows ``v(a -> b)``.
+    """
     label = label.strip()
     if "(" in label and label.endswith(")"):
         func, _, rest = label.partition("(")
-        args = [a.strip() for a in rest[:-1].split(",")]
-        return f"{func.strip()}({', '.join(args)})"
+        parts = [", ".join(a.strip() for a in part.split(",")) for part in rest[:-1].split("->")]
+        return f"{func.strip()}({' -> '.join(p.strip() for p in parts)})"
     return label
 
 
 def _missing(label: str, have) -> str:
     import difflib
 
-    close = difflib.get_close_matches(_normal(label), list(have), n=3)
+    close = difflib.get_close_matches(_normal(label).replace(", ", " -> "), list(have), n=3)
     more = f"; did you mean {', '.join(close)}?" if close else f"; recorded: {', '.join(list(have)[:12])}"
     return f"no signal {label!r} in these results{more}"
 

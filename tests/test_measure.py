@@ -346,3 +346,52 @@ check overshoot(v(in)) < 5 %
     (check,) = report.checks
     assert check.status == "fail"
     assert "no step" in check.message
+
+
+# --------------------------------------------------------------------------
+# The voltage between two nodes: v(a -> b), evaluated (not only parsed).
+
+
+DIVIDER = """\
+voltage-source V1 in -> gnd 12 V
+resistor R1 in -> mid 1 kohm
+resistor R2 mid -> gnd 2 kohm
+"""
+
+
+def test_voltage_between_nodes_and_across_an_element_are_evaluated():
+    # Voltage divider (Ohm's law): v(mid) = 12 V * 2k/(1k+2k) = 8 V, so
+    # v(in -> mid) = 4 V and v(R1) (a minus b of R1) = 4 V as well; the
+    # reversed arrow flips the sign. Exact up to round-off (1e-12 relative).
+    c = mna.parse(DIVIDER + "simulate dc\nrecord v(in -> mid), v(mid -> in), v(R1), v(mid)\n")
+    op = c.dc()
+    assert op["v(in -> mid)"] == pytest.approx(4.0, rel=1e-12)
+    assert op["v(mid -> in)"] == pytest.approx(-4.0, rel=1e-12)
+    assert op["v(R1)"] == pytest.approx(4.0, rel=1e-12)
+    assert op["v(in->mid)"] == op["v(in -> mid)"]  # spacing inside a label does not matter
+    res = c.transient(until=1e-3, step=1e-4, record=["v(in -> mid)"])
+    assert np.allclose(res["v(in -> mid)"], 4.0, rtol=1e-12)
+
+
+def test_voltage_between_nodes_in_checks_and_csv(tmp_path):
+    c = mna.parse(DIVIDER + "simulate transient until=1 ms step=100 us\nrecord v(in -> mid)\n"
+                  "check final(v(in -> mid)) within 1 mV of 4 V\n")
+    outcome = run_and_check(c)
+    assert outcome.report.checks[0].status == "pass"
+    csv_path = outcome.results[0].to_csv(tmp_path / "w.csv")
+    assert csv_path.read_text().splitlines()[0] == "time,v(in -> mid)"
+
+
+@pytest.mark.parametrize("line", ["record v(in, mid)", "check final(v(in, mid)) < 5 V",
+                                  "switch Q1 in -> gnd gate=v(in, mid) > 1 V"])
+def test_the_comma_form_is_refused_with_the_arrow_spelling(line):
+    text = DIVIDER + "simulate transient until=1 ms step=100 us\n" + line + "\n"
+    with pytest.raises(mna.InputError, match=r"v\(in -> mid\)") as info:
+        mna.parse(text)
+    assert info.value.span is not None and info.value.span.line == 5
+
+
+def test_results_lookup_of_the_comma_form_suggests_the_arrow():
+    op = mna.parse(DIVIDER + "record v(in -> mid)\n").dc()
+    with pytest.raises(KeyError, match=r"did you mean v\(in -> mid\)"):
+        op["v(in, mid)"]

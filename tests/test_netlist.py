@@ -19,7 +19,7 @@ inductor L1 a -> gnd Lcoil resistance=38 ohm
 capacitor C1 a -> gnd 4.7uF initial=-2 V
 current-source I1 a -> gnd -2 A
 simulate transient until=4 ms  step=10 ns  method=backward-euler  start=dc
-record v(a), i(L1), v(a, sup)
+record v(a), i(L1), v(a -> sup)
 measure t_half = crossing(v(a), 12 V)
 check max(v(a)) < 60 V
 check final(v(a)) within 2 % of 24 V
@@ -58,7 +58,8 @@ def test_statement_contents():
     assert isinstance(sim.arguments[2].value, nl.Word) and sim.arguments[2].value.word == "backward-euler"
     record = st[9]
     assert [q.func for q in record.quantities] == ["v", "i", "v"]
-    assert [a.name for a in record.quantities[2].args] == ["a", "sup"]
+    (across,) = record.quantities[2].args
+    assert isinstance(across, nl.NodePair) and (across.a, across.b) == ("a", "sup")
     within = st[12]
     assert within.op == "within" and within.tolerance is not None
 

@@ -265,16 +265,24 @@ def test_gate_errors_are_explained():
     with pytest.raises(mna.InputError, match="on= .* must be below off="):
         mna.parse("switch Q1 a -> gnd on=1 Mohm off=1 ohm gate=schedule(closed)\n")
     base = "voltage-source V1 a -> gnd 1 V\nresistor R1 a -> b 1 ohm\n"
-    cases = [
+    # Numbers and units are resolved with the file (one stage, at load time)...
+    at_load = [
         ("gate=schedule(closed, 2 ms: open, 1 ms: closed)", "times must be positive and increase"),
         ("gate=schedule(closed, 2 V: open)", "needs seconds"),
         ("gate=pwm(frequency=1 kHz, duty=150 %)", "duty= must lie between"),
-        ("gate=v(nowhere) > 1 V", "no electrical node 'nowhere'"),
-        ("gate=i(R1) > 1 A", "R1 is a resistor"),
         ("gate=v(a) > 1 A", "needs volts"),
         ("gate=i(V1) > 1 A hysteresis=1 V", "needs amperes"),
+        ("gate=v(a, b) > 1 V", r"v\(a -> b\)"),
     ]
-    for gate, message in cases:
+    for gate, message in at_load:
+        with pytest.raises(mna.InputError, match=message):
+            mna.parse(base + f"switch Q1 b -> gnd {gate}\n")
+    # ...names when the circuit is compiled (a node may be named further down).
+    at_compile = [
+        ("gate=v(nowhere) > 1 V", "no electrical node 'nowhere'"),
+        ("gate=i(R1) > 1 A", "R1 is a resistor"),
+    ]
+    for gate, message in at_compile:
         c = mna.parse(base + f"switch Q1 b -> gnd {gate}\n")
         with pytest.raises(mna.InputError, match=message):
             c.dc()

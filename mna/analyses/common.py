@@ -2,17 +2,16 @@
 
 from __future__ import annotations
 
-import math
 import threading
 from typing import TYPE_CHECKING, Sequence
 
 import numpy as np
 
-from ..circuit import SignalRef
 from ..elements.base import ELECTRICAL, REFERENCE, SHAFT, THERMAL
 from ..system import Probe, System, compile_circuit
 from ..topology import TopologyReport, check_topology
-from ..units import AMPERE, ANGULAR_SPEED, DIMENSIONLESS, KELVIN, VOLT
+from ..units import AMPERE, ANGULAR_SPEED, KELVIN, VOLT
+from ..values import SignalRef, stored_per_si
 
 if TYPE_CHECKING:  # pragma: no cover
     from ..circuit import Circuit
@@ -83,15 +82,13 @@ def compute_signal(ref: SignalRef, circuit: "Circuit", probe: Probe) -> np.ndarr
         return probe.node(ref.names[0]) - probe.node(ref.names[1])
     if ref.target == "node":
         values = probe.node(ref.names[0])
-        if ref.quantity == "rpm":
-            return values * (60.0 / (2.0 * math.pi))
         if ref.quantity == "angle":
             return _cumulative_trapezoid(probe.time, values)
         if ref.quantity == "T":  # a thermal node holds its rise above the ambient
             from ..elements.thermal import ambient_temperature
 
             return values + ambient_temperature(circuit)
-        return values
+        return values * stored_per_si(ref.quantity)
     element = circuit.elements[ref.names[0]]
     return np.asarray(element.output(ref.quantity, probe), dtype=float)
 
@@ -104,20 +101,8 @@ def _cumulative_trapezoid(t: np.ndarray, y: np.ndarray) -> np.ndarray:
 
 
 def unit_label(ref: SignalRef) -> str:
-    """The unit shown beside a signal (CSV values are SI base units)."""
-    from ..units import unit_symbol
-
-    if ref.quantity == "rpm":
-        return "rpm"
-    if ref.quantity == "w":
-        return "rad/s"
-    if ref.quantity == "angle":
-        return "rad"
-    if ref.quantity in ("torque", "torque_out"):
-        return "N*m"
-    if ref.dimension == DIMENSIONLESS:
-        return ""
-    return unit_symbol(ref.dimension)
+    """The unit shown beside a signal (CSV values are SI base units but for ``rpm``)."""
+    return ref.unit
 
 
 def plan(system: System, circuit: "Circuit", refs: Sequence[SignalRef]) -> tuple[list[int], list[int]]:

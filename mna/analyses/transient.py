@@ -42,7 +42,7 @@ from typing import TYPE_CHECKING, Any, Sequence
 
 import numpy as np
 
-from ..circuit import SignalRef
+from ..values import SignalRef
 from ..errors import InputError, SimulationError
 from ..integrate import IntegrationMethod, get_method
 from ..results import Waveforms

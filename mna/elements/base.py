@@ -83,8 +83,12 @@ class Arg:
     - ``"waveform"``: a quantity or ``step(...)``, ``pwm(...)``,
       ``sine(...)``, ``piecewise(...)`` whose values have ``dimension``;
     - ``"choice"``: one word of ``choices``;
-    - ``"expr"``: the raw expression, interpreted by the element itself
-      (a switch gate, for instance).
+    - ``"expr"``: an expression the element interprets itself (a switch
+      gate, for instance). With ``resolve``, elaboration calls
+      ``resolve(expr, value)`` and passes on what it returns; ``value(e)``
+      evaluates a sub-expression to a :class:`~mna.units.Quantity` with
+      the circuit's parameters. Without it the element gets the raw
+      expression tree.
 
     ``angular=True`` marks an angular speed (dimension 1/s): a value
     written in hertz is refused as ambiguous (cycles or radians per
@@ -101,6 +105,7 @@ class Arg:
     doc: str = ""
     angular: bool = False
     absolute: bool = False  # an absolute temperature: takes K or a literal in degC
+    resolve: Any = None
 
     @property
     def required(self) -> bool:

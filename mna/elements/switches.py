@@ -23,7 +23,7 @@ Gates:
     (open before it). ``delay`` defaults to 0 s.
 ``QUANTITY > LEVEL`` or ``QUANTITY < LEVEL``
     Closed while the comparison holds. QUANTITY is ``v(node)``,
-    ``v(a, b)`` or ``i(E)`` of an element whose current is an unknown of the
+    ``v(a -> b)`` or ``i(E)`` of an element whose current is an unknown of the
     circuit (inductor, choke, voltage source; for any other element compare
     the voltage across a sense resistor). ``hysteresis=H`` (same unit) makes a
     band centred on LEVEL: with ``>`` the switch closes when the quantity
@@ -51,7 +51,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
-from typing import Any
+from typing import Any, Callable
 
 import numpy as np
 
@@ -59,7 +59,7 @@ from .. import netlist as nl
 from ..errors import InputError, SimulationError, UnitsError, UnknownNameError
 from ..expressions import evaluate
 from ..limits import periodic_edges
-from ..units import AMPERE, DIMENSIONLESS, HERTZ, OHM, SECOND, VOLT, WATT, Dimension, describe
+from ..units import AMPERE, DIMENSIONLESS, HERTZ, OHM, SECOND, VOLT, WATT, Dimension, Quantity, describe
 from .base import CONDUCTOR, Arg, Branch, NonlinearBatch
 from .batching import BranchPattern, NodeSelector
 from .passive import TwoTerminal
@@ -71,35 +71,35 @@ STATE_WORDS = {"closed": True, "on": True, "open": False, "off": False}
 MAX_CHATTER = 100
 
 # --------------------------------------------------------------------------
-# Gate specifications: parsed from the netlist expression at elaboration,
-# turned into numbers at compile time (when ``let`` values are known).
+# Gates are resolved in one stage, at elaboration: shape, names of the
+# comparison and every number (``let`` values are known then). Only the
+# unknown indices of a comparison gate wait for compilation.
 
 
-@dataclass
-class ScheduleSpec:
-    first: bool
-    points: list[tuple[nl.Expr, bool]]
-    span: Any = None
-
-
-@dataclass
-class PwmSpec:
-    named: dict[str, nl.Expr]
-    span: Any = None
-
-
-@dataclass
+@dataclass(frozen=True)
 class CompareSpec:
+    """A comparison gate before compilation: what it compares, and the level (SI)."""
+
     quantity: str  # "v" or "i"
     names: tuple[str, ...]
     sign: float  # +1: closed while quantity > level; -1: while quantity < level
-    level: nl.Expr
+    level: float  # V or A
     span: Any = None
     name_spans: tuple = field(default_factory=tuple)
+
+    @property
+    def dimension(self) -> Dimension:
+        return VOLT if self.quantity == "v" else AMPERE
+
+    @property
+    def label(self) -> str:
+        return f"{self.quantity}({' -> '.join(self.names)})"
 
 
 GATE_HELP = ("a gate is schedule(closed, 2 ms: open, ...), pwm(frequency=.., duty=.., delay=..) "
              "or a comparison such as v(g) > 2.5 V or i(L1) < 1 A")
+
+Evaluate = Callable[[nl.Expr], Quantity]
 
 
 def _state_word(expr: nl.Expr) -> bool:
@@ -109,71 +109,120 @@ def _state_word(expr: nl.Expr) -> bool:
     return STATE_WORDS[word]
 
 
-def parse_gate(expr: nl.Expr) -> ScheduleSpec | PwmSpec | CompareSpec:
-    """Check a gate expression's shape; numbers are evaluated later by :func:`realise_gate`."""
+def resolve_gate(expr: nl.Expr, value: Evaluate) -> "ScheduleGate | PwmGate | CompareSpec":
+    """A gate expression -> its gate, every number evaluated with ``value`` (checked units)."""
     span = getattr(expr, "span", None)
     if isinstance(expr, nl.Call) and expr.func == "schedule":
-        if expr.named or not expr.args:
-            raise InputError("schedule() lists a first state then TIME: STATE changes, like "
-                             "schedule(closed, 2 ms: open)", span)
-        first, *rest = expr.args
-        if isinstance(first, nl.Pair):
-            raise InputError("schedule() starts with the state at t = 0 (closed or open), then "
-                             "TIME: STATE changes", first.span)
-        points = []
-        for item in rest:
-            if not isinstance(item, nl.Pair):
-                raise InputError("after the first state, each schedule() entry is TIME: STATE, like 2 ms: open",
-                                 getattr(item, "span", None))
-            points.append((item.key, _state_word(item.value)))
-        return ScheduleSpec(_state_word(first), points, span)
+        return _schedule(expr, value, span)
     if isinstance(expr, nl.Call) and expr.func == "pwm":
-        if expr.args:
-            raise InputError("a pwm() gate takes named arguments only: pwm(frequency=.., duty=.., delay=..)",
-                             expr.args[0].span)
-        named: dict[str, nl.Expr] = {}
-        for key, value, key_span in expr.named:
-            if key not in ("frequency", "duty", "delay"):
-                raise UnknownNameError(f"a pwm() gate has no argument {key!r}", key_span,
-                                       hint="it takes frequency=, duty= and delay= (the switch is closed "
-                                            "during the duty part of each period)")
-            if key in named:
-                raise InputError(f"{key}= is given twice", key_span)
-            named[key] = value
-        for key in ("frequency", "duty"):
-            if key not in named:
-                raise InputError(f"a pwm() gate needs {key}=", span)
-        return PwmSpec(named, span)
+        return _pwm(expr, value, span)
     if isinstance(expr, nl.Compare):
-        left, right, op = expr.left, expr.right, expr.op
-        if _is_signal(right) and not _is_signal(left):
-            left, right = right, left
-            op = {"<": ">", "<=": ">=", ">": "<", ">=": "<="}[op]
-        if not _is_signal(left):
-            raise InputError("a comparison gate compares a circuit quantity with a level: v(node), v(a, b) "
-                             "or i(ELEMENT), like v(g) > 2.5 V", span)
-        names = tuple(a.name for a in left.args)
-        if left.func == "i" and len(names) != 1:
-            raise InputError("i() in a gate takes one element name", left.span)
-        if left.func == "v" and len(names) not in (1, 2):
-            raise InputError("v() in a gate takes a node, or two nodes v(a, b)", left.span)
-        sign = 1.0 if op in (">", ">=") else -1.0
-        return CompareSpec(left.func, names, sign, right, span, tuple(a.span for a in left.args))
+        return _comparison(expr, value, span)
     if isinstance(expr, nl.Call):
         raise UnknownNameError(f"unknown gate {expr.func}()", span, hint=GATE_HELP)
     raise InputError("this is not a gate", span, hint=GATE_HELP)
 
 
+def _schedule(expr: nl.Call, value: Evaluate, span) -> "ScheduleGate":
+    if expr.named or not expr.args:
+        raise InputError("schedule() lists a first state then TIME: STATE changes, like "
+                         "schedule(closed, 2 ms: open)", span)
+    first, *rest = expr.args
+    if isinstance(first, nl.Pair):
+        raise InputError("schedule() starts with the state at t = 0 (closed or open), then "
+                         "TIME: STATE changes", first.span)
+    times, states = [0.0], [_state_word(first)]
+    for item in rest:
+        if not isinstance(item, nl.Pair):
+            raise InputError("after the first state, each schedule() entry is TIME: STATE, like 2 ms: open",
+                             getattr(item, "span", None))
+        t = _quantity(item.key, value, SECOND, "a schedule() time")
+        if not t > times[-1]:
+            raise InputError("schedule() times must be positive and increase from entry to entry",
+                             getattr(item.key, "span", None))
+        times.append(t)
+        states.append(_state_word(item.value))
+    return ScheduleGate(np.array(times), np.array(states, dtype=bool))
+
+
+def _pwm(expr: nl.Call, value: Evaluate, span) -> "PwmGate":
+    if expr.args:
+        raise InputError("a pwm() gate takes named arguments only: pwm(frequency=.., duty=.., delay=..)",
+                         expr.args[0].span)
+    named: dict[str, nl.Expr] = {}
+    for key, given, key_span in expr.named:
+        if key not in ("frequency", "duty", "delay"):
+            raise UnknownNameError(f"a pwm() gate has no argument {key!r}", key_span,
+                                   hint="it takes frequency=, duty= and delay= (the switch is closed "
+                                        "during the duty part of each period)")
+        if key in named:
+            raise InputError(f"{key}= is given twice", key_span)
+        named[key] = given
+    for key in ("frequency", "duty"):
+        if key not in named:
+            raise InputError(f"a pwm() gate needs {key}=", span)
+    f = _quantity(named["frequency"], value, HERTZ, "pwm() frequency")
+    d = _quantity(named["duty"], value, DIMENSIONLESS, "pwm() duty")
+    delay = _quantity(named["delay"], value, SECOND, "pwm() delay") if "delay" in named else 0.0
+    if not f > 0:
+        raise InputError("pwm() frequency= must be positive", named["frequency"].span)
+    if not 0.0 <= d <= 1.0:
+        raise InputError(f"pwm() duty= must lie between 0 % and 100 %, got {d * 100:g} %", named["duty"].span,
+                         hint=_duty_hint(named["duty"]))
+    if delay < 0:
+        raise InputError("pwm() delay= cannot be negative", named["delay"].span)
+    return PwmGate(f, d, delay)
+
+
+def _duty_hint(expr: nl.Expr) -> str | None:
+    """``duty=60`` is a fraction 60 (6000 %): suggest ``60 %``."""
+    if isinstance(expr, nl.Number) and expr.value.dim == DIMENSIONLESS and 1 < expr.value.value <= 100:
+        return f"a duty is a fraction or a percentage: write duty={expr.text.strip()} % (or {expr.value.value / 100:g})"
+    return None
+
+
+def _comparison(expr: nl.Compare, value: Evaluate, span) -> CompareSpec:
+    left, right, op = expr.left, expr.right, expr.op
+    if _is_signal(right) and not _is_signal(left):
+        left, right = right, left
+        op = {"<": ">", "<=": ">=", ">": "<", ">=": "<="}[op]
+    if not _is_signal(left):
+        raise InputError("a comparison gate compares a circuit quantity with a level: v(node), v(a -> b) "
+                         "or i(ELEMENT), like v(g) > 2.5 V", span)
+    if len(left.args) != 1:
+        if left.func == "v" and len(left.args) == 2 and all(isinstance(a, nl.Name) for a in left.args):
+            a, b = (x.name for x in left.args)
+            raise InputError(f"the voltage between two nodes is written with an arrow: v({a} -> {b}), "
+                             f"not v({a}, {b})", left.span)
+        raise InputError(f"{left.func}() in a gate takes one name, or for v() two nodes v(a -> b)", left.span)
+    (arg,) = left.args
+    if isinstance(arg, nl.NodePair):
+        if left.func != "v":
+            raise InputError("i() in a gate takes one element name", left.span)
+        names, spans = (arg.a, arg.b), (arg.a_span, arg.b_span)
+    else:
+        names, spans = (arg.name,), (arg.span,)
+    sign = 1.0 if op in (">", ">=") else -1.0
+    want = VOLT if left.func == "v" else AMPERE
+    level = _quantity(right, value, want, "the level of a comparison gate")
+    return CompareSpec(left.func, names, sign, level, span, spans)
+
+
 def _is_signal(expr: nl.Expr) -> bool:
     return (isinstance(expr, nl.Call) and expr.func in ("v", "i") and not expr.named and bool(expr.args)
-            and all(isinstance(a, nl.Name) for a in expr.args))
+            and all(isinstance(a, (nl.Name, nl.NodePair)) for a in expr.args))
 
 
-def _quantity(expr: nl.Expr, params, want: Dimension, what: str) -> float:
-    q = evaluate(expr, params)
+def _quantity(expr: nl.Expr, value: Evaluate, want: Dimension, what: str) -> float:
+    q = value(expr)
     if q.dim != want:
         raise UnitsError(f"{what} needs {describe(want)}, got {describe(q.dim)}", getattr(expr, "span", None))
     return q.value
+
+
+def resolve_quantity(expr: nl.Expr, value: Evaluate) -> Quantity:
+    """An expression argument whose unit the element checks itself (``hysteresis=``)."""
+    return value(expr)
 
 
 # --------------------------------------------------------------------------
@@ -242,41 +291,10 @@ class CompareGate:
     label: str
 
 
-def realise_gate(spec, params, stamper, switch: "Switch"):
-    """Numbers and unknown indices for a gate (at compile time)."""
-    if isinstance(spec, ScheduleSpec):
-        times, states = [0.0], [spec.first]
-        for expr, state in spec.points:
-            t = _quantity(expr, params, SECOND, f"schedule time of switch {switch.name}")
-            if not t > times[-1] or t <= 0:
-                raise InputError(f"switch {switch.name}: schedule() times must be positive and increase "
-                                 "from entry to entry", getattr(expr, "span", None))
-            times.append(t)
-            states.append(state)
-        return ScheduleGate(np.array(times), np.array(states, dtype=bool))
-    if isinstance(spec, PwmSpec):
-        f = _quantity(spec.named["frequency"], params, HERTZ, "pwm() frequency")
-        d = _quantity(spec.named["duty"], params, DIMENSIONLESS, "pwm() duty")
-        delay = _quantity(spec.named["delay"], params, SECOND, "pwm() delay") if "delay" in spec.named else 0.0
-        if not f > 0:
-            raise InputError("pwm() frequency= must be positive", spec.span)
-        if not 0.0 <= d <= 1.0:
-            raise InputError(f"pwm() duty= must lie between 0 % and 100 %, got {d * 100:g} %", spec.span)
-        if delay < 0:
-            raise InputError("pwm() delay= cannot be negative", spec.span)
-        return PwmGate(f, d, delay)
-    want = VOLT if spec.quantity == "v" else AMPERE
-    level = _quantity(spec.level, params, want, "the level of a comparison gate")
-    hysteresis = 0.0
-    h_expr = switch.params.get("hysteresis")
-    if h_expr is not None:
-        hysteresis = _quantity(h_expr, params, want, f"hysteresis of switch {switch.name} (its gate compares "
-                                                     f"{'a voltage' if want == VOLT else 'a current'})")
-        if hysteresis < 0:
-            raise InputError("hysteresis= cannot be negative", switch.span_of("hysteresis"))
+def compare_gate(spec: CompareSpec, hysteresis: float, stamper, switch: "Switch") -> CompareGate:
+    """A comparison gate with its unknown indices (at compile time)."""
     pos, neg = _signal_indices(spec, stamper, switch)
-    label = f"{spec.quantity}({', '.join(spec.names)})"
-    return CompareGate(pos, neg, spec.sign, level, hysteresis, label)
+    return CompareGate(pos, neg, spec.sign, spec.level, hysteresis, spec.label)
 
 
 def _signal_indices(spec: CompareSpec, s, switch: "Switch") -> tuple[int, int]:
@@ -302,7 +320,7 @@ def _signal_indices(spec: CompareSpec, s, switch: "Switch") -> tuple[int, int]:
         raise InputError(
             f"switch {switch.name}: a gate can compare i() of an element whose current is an unknown of the "
             f"circuit (inductor, choke, voltage source); {name} is a {element.keyword}",
-            span, hint="compare v(a, b) across a resistor instead, or put a sense element in series",
+            span, hint="compare v(a -> b) across a resistor instead, or put a sense element in series",
         )
     return index, -1
 
@@ -322,8 +340,9 @@ class Switch(TwoTerminal):
     arguments = (
         Arg("on", OHM, default=10e-3, positive=True, doc="resistance when closed"),
         Arg("off", OHM, default=10e6, positive=True, doc="resistance when open"),
-        Arg("gate", kind="expr", doc="schedule(...), pwm(...) or a comparison such as v(g) > 2.5 V"),
-        Arg("hysteresis", kind="expr", default=None,
+        Arg("gate", kind="expr", resolve=resolve_gate,
+            doc="schedule(...), pwm(...) or a comparison such as v(g) > 2.5 V"),
+        Arg("hysteresis", kind="expr", default=None, resolve=resolve_quantity,
             doc="width of the band around a comparison gate's level (V or A)"),
     )
     outputs = {"v": VOLT, "i": AMPERE, "p": WATT, "state": DIMENSIONLESS}
@@ -334,18 +353,37 @@ class Switch(TwoTerminal):
         if not p["on"] < p["off"]:
             raise InputError(f"switch {self.name}: on= ({p['on']:g} ohm) must be below off= ({p['off']:g} ohm)",
                              self.span_of("on"))
-        self.spec = parse_gate(p["gate"])
-        if p["hysteresis"] is not None and not isinstance(self.spec, CompareSpec):
+        if isinstance(p["gate"], (nl.Call, nl.Compare, nl.Name, nl.Number)):  # built without a circuit
+            p["gate"] = resolve_gate(p["gate"], lambda e: evaluate(e, {}))
+        if isinstance(p["hysteresis"], (nl.Call, nl.Compare, nl.Name, nl.Number, nl.BinaryOp)):
+            p["hysteresis"] = evaluate(p["hysteresis"], {})
+        self.spec = p["gate"]
+        self.hysteresis = self._hysteresis(p["hysteresis"])
+        self.gate = None if isinstance(self.spec, CompareSpec) else self.spec
+
+    def _hysteresis(self, given: Quantity | None) -> float:
+        """The hysteresis band (V or A), checked against what the gate compares."""
+        if given is None:
+            return 0.0
+        if not isinstance(self.spec, CompareSpec):
             raise InputError(f"switch {self.name}: hysteresis= applies only to a comparison gate",
                              self.span_of("hysteresis"))
-        self.gate = None
+        want = self.spec.dimension
+        if given.dim != want:
+            raise UnitsError(f"hysteresis of switch {self.name} (its gate compares "
+                             f"{'a voltage' if want == VOLT else 'a current'}) needs {describe(want)}, "
+                             f"got {describe(given.dim)}", self.span_of("hysteresis"))
+        if given.value < 0:
+            raise InputError("hysteresis= cannot be negative", self.span_of("hysteresis"))
+        return given.value
 
     def branches(self):
         return [Branch(self.nodes["a"], self.nodes["b"], CONDUCTOR)]
 
     def stamp(self, s):
         self._a, self._b = s.node(self.nodes["a"]), s.node(self.nodes["b"])
-        self.gate = realise_gate(self.spec, s.circuit.params, s, self)
+        if isinstance(self.spec, CompareSpec):
+            self.gate = compare_gate(self.spec, self.hysteresis, s, self)
 
     def corners(self, start, stop):
         if isinstance(self.gate, (ScheduleGate, PwmGate)):
