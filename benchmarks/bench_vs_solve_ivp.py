@@ -151,7 +151,7 @@ def switched_rhs(on: bool):
 
     V, Lc, R, Ron = 12.0, 1e-3, 10.0, 50e-3
     Is, n, Rs = 5e-9, 1.8, 40e-3
-    nvt = n * Boltzmann * 300.15 / elementary_charge
+    nvt = n * Boltzmann * 298.15 / elementary_charge
     if on:
         return lambda t, y: [(V - (R + Ron) * y[0]) / Lc]
     return lambda t, y: [(-R * y[0] - nvt * np.log1p(max(y[0], 0.0) / Is) - Rs * y[0]) / Lc]

@@ -233,7 +233,7 @@ def newton(
 ) -> NewtonResult:
     """Solve ``alpha*q(x) + history + f(x, t) = 0`` from the guess ``x0``.
 
-    ``extra_diag`` adds conductances to the diagonal (a DC leak, a gmin
+    ``extra_diag`` adds conductances to the diagonal (a DC leak, leak
     step); ``source_scale`` multiplies every independent source (source
     stepping); ``hold`` = (rows, values) replaces those rows by
     ``x[row] = value`` (the DC hold, see

@@ -45,7 +45,7 @@ def omega_current(vs: float, r: float, isat: float, nvt: float) -> float:
     return nvt / r * float(wrightomega(x).real) - isat
 
 
-@pytest.mark.parametrize("temperature", [300.15, 300.0, 350.0])
+@pytest.mark.parametrize("temperature", [298.15, 300.0, 350.0])
 def test_thermal_voltage_from_the_si_constants(temperature):
     assert thermal_voltage(temperature) == pytest.approx(K_BOLTZMANN * temperature / Q_ELECTRON, rel=1e-15)
 
@@ -65,7 +65,7 @@ def test_diode_and_resistor_at_dc_against_lambert_w(vs, r, isat, n):
         f"diode D1 x -> gnd saturation-current={isat} A ideality={n}\n"
     )
     op = c.dc()
-    nvt = n * K_BOLTZMANN * 300.15 / Q_ELECTRON  # default temperature 300.15 K
+    nvt = n * K_BOLTZMANN * 298.15 / Q_ELECTRON  # default temperature 298.15 K
     expected = lambert_current(vs, r, isat, nvt)
     assert op["i(D1)"] == pytest.approx(expected, rel=1e-8)
     assert op["i(R1)"] == pytest.approx(expected, rel=1e-8)
@@ -80,7 +80,7 @@ def test_series_resistance_inside_the_diode_is_the_same_as_outside():
         "diode D1 in -> gnd saturation-current=1e-12 A ideality=1.5 resistance=2 ohm\n"
     )
     op = c.dc()
-    nvt = 1.5 * K_BOLTZMANN * 300.15 / Q_ELECTRON
+    nvt = 1.5 * K_BOLTZMANN * 298.15 / Q_ELECTRON
     assert op["i(D1)"] == pytest.approx(omega_current(3.0, 2.0, 1e-12, nvt), rel=1e-8)
 
 
@@ -103,14 +103,14 @@ def test_hard_forward_bias_converges_through_junction_limiting():
         "diode D1 x -> gnd\n"
     )
     op = c.dc()
-    nvt = K_BOLTZMANN * 300.15 / Q_ELECTRON
+    nvt = K_BOLTZMANN * 298.15 / Q_ELECTRON
     assert op["i(D1)"] == pytest.approx(omega_current(100.0, 1.0, 1e-14, nvt), rel=1e-8)
     assert op.statistics["dc_method"] == "newton"
 
 
 def test_zener_breakdown_against_lambert_w():
-    # Reverse breakdown I = -Ibv exp(-(V + BV)/(nbv Vt)); fed from 30 V
-    # through 1 kohm it is the same Lambert-W problem with Is -> Ibv exp(-BV/nVt)
+    # Reverse breakdown I = -Ibr exp(-(V + Vbr)/(nbr Vt)); fed from 30 V
+    # through 1 kohm it is the same Lambert-W problem with Isat -> Ibr exp(-Vbr/nVt)
     # (the forward term, -Is, and the 1e-12 S floor are below 1e-9 relative).
     bv, izt, vs, r = 12.0, 5e-3, 30.0, 1e3
     c = mna.parse(
@@ -119,18 +119,18 @@ def test_zener_breakdown_against_lambert_w():
         f"diode Z1 gnd -> k breakdown={bv} V breakdown-current={izt} A\n"
     )
     op = c.dc()
-    nvt = K_BOLTZMANN * 300.15 / Q_ELECTRON
+    nvt = K_BOLTZMANN * 298.15 / Q_ELECTRON
     x = math.log(izt * r / nvt) + (vs - bv) / nvt
     expected = nvt / r * float(wrightomega(x).real)
     assert -op["i(Z1)"] == pytest.approx(expected, rel=1e-7)
-    # At the test current the Zener voltage is BV: check the definition.
+    # At the test current the Zener voltage is Vbr: check the definition.
     c2 = mna.parse(f"current-source I1 gnd -> k {izt} A\ndiode Z1 gnd -> k breakdown={bv} V "
                    f"breakdown-current={izt} A\n")
     assert c2.dc()["v(k)"] == pytest.approx(bv, abs=1e-6)
 
 
 def test_junction_capacitance_charges_like_an_rc():
-    # A reverse-biased junction carries only GMIN leakage: with capacitance=
+    # A reverse-biased junction carries only the 1e-12 S junction leakage: with capacitance=
     # it is a capacitor, so a step through R charges it as an RC
     # (vC = V (1 - exp(-t/RC)), Nilsson & Riedel ch. 7), up to the leakage
     # 1e-12 S * 5 V against 5 mA-scale currents.
@@ -184,7 +184,7 @@ def test_freewheeling_diode_clamp_and_decay():
         "record v(sw), i(Lc), i(D1)\n"
     )
     res = c.transient(until=1.9e-3, step=5e-7, method="trapezoidal")
-    nvt = K_BOLTZMANN * 300.15 / Q_ELECTRON
+    nvt = K_BOLTZMANN * 298.15 / Q_ELECTRON
     i0 = vs / (rc + 1e-6)
     clamp = nvt * math.log1p(i0 / isat)
     # The first sample after the opening carries I0 less a 1 Gohm leak.

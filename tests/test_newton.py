@@ -1,7 +1,7 @@
-"""Newton's method and its safeguards: limiting, damping, gmin and source stepping, failure.
+"""Newton's method and its safeguards: limiting, damping, leak stepping and source ramping, failure.
 
 Sources:
-- Damped Newton and continuation (gmin stepping, source stepping):
+- Damped Newton and continuation (leak stepping, source ramping):
   Vlach & Singhal, *Computer Methods for Circuit Analysis and Design*
   (1994), and Chua & Lin (1975), from memory (REFERENCES.md section 9).
 - Newton's method on atan diverges from |x0 - root| > 1.39 (a textbook
@@ -27,7 +27,7 @@ from scipy.special import wrightomega
 import mna
 from mna import Arg, Branch, Element, NonlinearBatch
 from mna.analyses.common import dc_leak, prepare
-from mna.analyses.dc import gmin_stepping, source_stepping
+from mna.analyses.dc import leak_stepping, source_ramping
 from mna.cli import main as cli_main
 from mna.elements import CONDUCTOR
 from mna.elements.registry import _extra
@@ -120,27 +120,27 @@ def test_damping_rescues_newton_where_plain_newton_diverges():
     assert op.statistics["dc_method"] == "damped newton"
 
 
-def test_gmin_stepping_starts_where_the_jacobian_vanishes():
+def test_leak_stepping_starts_where_the_jacobian_vanishes():
     # i = 1e-3 (v^2 - 1) has roots at +-1 V but a zero Jacobian at v = 0, so
     # Newton from zero cannot take a first step; a conductance to the
     # reference gives it one, and is then stepped away.
     c = mna.parse("test-square X a offset=-1\ncurrent-source I1 gnd -> a 0 A\n")
     op = c.dc()
-    assert op.statistics["dc_method"] == "gmin stepping"
+    assert op.statistics["dc_method"] == "leak stepping"
     assert abs(op["v(a)"]) == pytest.approx(1.0, abs=1e-9)
 
 
-def test_source_stepping_reaches_the_lambert_w_operating_point():
+def test_source_ramping_reaches_the_lambert_w_operating_point():
     vs, r, isat = 5.0, 1e3, 1e-14
     c = mna.parse(f"voltage-source V1 in -> gnd {vs} V\nresistor R1 in -> x {r} ohm\n"
                   f"diode D1 x -> gnd saturation-current={isat} A\n")
     system, report = prepare(c)
     fz = Factorizer(system)
-    x, iterations = source_stepping(system, fz, dc_leak(system, report), 0.0, np.zeros(system.n))
-    nvt = K_BOLTZMANN * 300.15 / Q_ELECTRON
+    x, iterations = source_ramping(system, fz, dc_leak(system, report), 0.0, np.zeros(system.n))
+    nvt = K_BOLTZMANN * 298.15 / Q_ELECTRON
     expected = nvt / r * float(wrightomega(math.log(isat * r / nvt) + (vs + isat * r) / nvt).real) - isat
     assert (vs - x[system.node_index["x"]]) / r == pytest.approx(expected, rel=1e-8)
-    x2, _ = gmin_stepping(system, fz, dc_leak(system, report), 0.0, np.zeros(system.n))
+    x2, _ = leak_stepping(system, fz, dc_leak(system, report), 0.0, np.zeros(system.n))
     assert np.allclose(x2, x, rtol=1e-8)
 
 
@@ -169,7 +169,7 @@ def test_no_solution_is_reported_with_the_unknowns_and_exit_status_3(tmp_path, c
     # point exists. Every stage of the ladder must give up in bounded time
     # and say which unknown would not settle.
     text = "test-square X a offset=1\nresistor R1 a -> b 1 kohm\nresistor R2 b -> gnd 1 kohm\n"
-    with pytest.raises(mna.SimulationError, match=r"no convergence by Newton.*source stepping.*v\(") as info:
+    with pytest.raises(mna.SimulationError, match=r"no convergence by Newton.*source ramping.*v\(") as info:
         mna.parse(text).dc()
     assert info.value.unknowns
     path = tmp_path / "nosolution.mna"

@@ -120,7 +120,7 @@ def freewheel_reference(times, periods):
     from scipy.integrate import solve_ivp
 
     V, L, R, Ron, Is, n, Rs = 12.0, 1e-3, 10.0, 50e-3, 5e-9, 1.8, 40e-3
-    nvt = n * Boltzmann * 300.15 / elementary_charge
+    nvt = n * Boltzmann * 298.15 / elementary_charge
     on = lambda t, y: [(V - (R + Ron) * y[0]) / L]  # noqa: E731
     off = lambda t, y: [(-R * y[0] - nvt * np.log1p(max(y[0], 0.0) / Is) - Rs * y[0]) / L]  # noqa: E731
     half = 5e-6

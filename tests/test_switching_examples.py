@@ -3,7 +3,7 @@
 Sources:
 - A diode or Zener clamp: the clamp voltage at current I follows from the
   Shockley equation (Sedra & Smith, from memory) and the breakdown law of
-  mna's diode (grammar/README.md), I = Ibv exp((V - BV)/Vt).
+  mna's diode (grammar/README.md), I = Ibr exp((V - Vbr)/Vt).
 - An RL coil discharging into a constant clamp voltage Vc from a supply Vs:
   L di/dt = Vs - Vc - R i, first-order circuit theory (Nilsson & Riedel,
   *Electric Circuits*, ch. 7); the clamp absorbs Vc * integral(i dt).
@@ -25,7 +25,7 @@ from scipy.integrate import solve_ivp
 import mna
 
 CIRCUITS = Path(__file__).resolve().parent.parent / "circuits"
-VT = 1.380649e-23 * 300.15 / 1.602176634e-19  # thermal voltage at the default 300.15 K
+VT = 1.380649e-23 * 298.15 / 1.602176634e-19  # thermal voltage at the default 298.15 K
 VS, LC, RC = 12.0, 60e-3, 24.0  # the valve: supply, coil inductance and resistance
 T_OPEN = 1e-3
 
@@ -61,7 +61,7 @@ def clamp_energy(i0: float, vc: float) -> float:
 def test_unprotected_valve_avalanches_the_mosfet(valve_runs):
     res = valve_runs["no_protection"]
     i0 = on_current(res)
-    # Breakdown law at the coil current: BV + Vt ln(I0/Ibv), BV = 70 V, Ibv = 10 mA.
+    # Breakdown law at the coil current: Vbr + Vt ln(I0/Ibr), Vbr = 70 V, Ibr = 10 mA.
     vc = 70.0 + VT * math.log(i0 / 10e-3)
     assert res["v(drain)"].max() == pytest.approx(vc, abs=0.02)
     # Energy into the avalanche against the RL discharge into a constant

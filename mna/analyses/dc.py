@@ -25,15 +25,15 @@ if TYPE_CHECKING:  # pragma: no cover
     from ..circuit import Circuit, SignalRef
 
 
-#: gmin stepping: the conductance (S) from every node to the reference starts
-#: here and is divided by GMIN_FACTOR per successful solve down to GMIN_END,
+#: Leak stepping: the conductance (S) from every node to the reference starts
+#: here and is divided by LEAK_FACTOR per successful solve down to LEAK_END,
 #: then removed.
-GMIN_START = 1e-2
-GMIN_END = 1e-12
-GMIN_FACTOR = 10.0
-#: Source stepping: the smallest fraction by which the sources may be raised.
+LEAK_START = 1e-2
+LEAK_END = 1e-12
+LEAK_FACTOR = 10.0
+#: Source ramping: the smallest fraction by which the sources may be raised.
 SOURCE_STEP_MIN = 1e-4
-#: Most solves one gmin or source-stepping ladder may take (keeps a hopeless
+#: Most solves one leak-stepping or source-ramping ladder may take (keeps a hopeless
 #: case from running for minutes before it reports).
 MAX_LADDER_STEPS = 200
 #: Most re-solves while switch gates settle into a consistent state.
@@ -50,10 +50,10 @@ def solve_dc(system: System, factorizer: Factorizer, leak: np.ndarray | None, t:
 
     1. Newton's method from ``guess`` (zeros by default), with junction limiting;
     2. the same with damping (the step is halved while the residual grows);
-    3. gmin stepping: a conductance from every node to the reference, from
-       :data:`GMIN_START` down to :data:`GMIN_END` by :data:`GMIN_FACTOR`
+    3. leak stepping: a conductance from every node to the reference, from
+       :data:`LEAK_START` down to :data:`LEAK_END` by :data:`LEAK_FACTOR`
        (a smaller factor after a failure), then removed;
-    4. source stepping: every independent source raised from 0 to its full
+    4. source ramping: every independent source raised from 0 to its full
        value, in fractions that grow after a success and halve after a failure.
 
     Switching elements are then asked for their state at this point
@@ -106,7 +106,7 @@ def _solve_point(system: System, factorizer: Factorizer, leak: np.ndarray | None
         first_failure = first_failure or result.worst
         if system.is_linear:
             break
-    for method, ladder in (("gmin stepping", gmin_stepping), ("source stepping", source_stepping)):
+    for method, ladder in (("leak stepping", leak_stepping), ("source ramping", source_ramping)):
         try:
             x, its = ladder(system, factorizer, leak, t, x0, discrete)
         except LadderFailed as exc:
@@ -116,8 +116,8 @@ def _solve_point(system: System, factorizer: Factorizer, leak: np.ndarray | None
     if singular is not None and not first_failure:
         _raise_dc_singular(singular, t)
     raise SimulationError(
-        "DC operating point: no convergence by Newton's method, damped Newton, gmin stepping or "
-        "source stepping; unknowns still moving: " + (", ".join(first_failure) or "(unknown)"),
+        "DC operating point: no convergence by Newton's method, damped Newton, leak stepping or "
+        "source ramping; unknowns still moving: " + (", ".join(first_failure) or "(unknown)"),
         time=t,
         unknowns=first_failure,
     )
@@ -132,7 +132,7 @@ def _raise_dc_singular(exc: SingularMatrix, t: float) -> None:
 
 
 class LadderFailed(Exception):
-    """A continuation ladder (gmin or source stepping) could not reach its end."""
+    """A continuation ladder (leak stepping or source ramping) could not reach its end."""
 
     def __init__(self, iterations: int):
         self.iterations = iterations
@@ -153,7 +153,7 @@ def _attempt(system, factorizer, x, t, leak_diag, scale=1.0, discrete=None):
         return None
 
 
-def gmin_stepping(system: System, factorizer: Factorizer, leak: np.ndarray | None, t: float,
+def leak_stepping(system: System, factorizer: Factorizer, leak: np.ndarray | None, t: float,
                   x0: np.ndarray, discrete: DiscreteStates | None = None) -> tuple[np.ndarray, int]:
     """Step a node-to-reference conductance down to nothing; (x, Newton iterations).
 
@@ -161,33 +161,33 @@ def gmin_stepping(system: System, factorizer: Factorizer, leak: np.ndarray | Non
     """
     total = 0
     x = x0
-    gmin = GMIN_START
-    factor = GMIN_FACTOR
-    result = _attempt(system, factorizer, x, t, _node_diag(system, gmin, leak), discrete=discrete)
+    leak_g = LEAK_START
+    factor = LEAK_FACTOR
+    result = _attempt(system, factorizer, x, t, _node_diag(system, leak_g, leak), discrete=discrete)
     if result is None or not result.converged:
         raise LadderFailed(result.iterations if result else 0)
     total += result.iterations
     x = result.x
     for _ in range(MAX_LADDER_STEPS):
-        if gmin == 0:
+        if leak_g == 0:
             return x, total
-        trial = gmin / factor if gmin / factor >= GMIN_END else 0.0
+        trial = leak_g / factor if leak_g / factor >= LEAK_END else 0.0
         diag = _node_diag(system, trial, leak) if trial else leak
         result = _attempt(system, factorizer, x, t, diag, discrete=discrete)
         total += result.iterations if result else 0
         if result is not None and result.converged:
-            x, gmin = result.x, trial
-            factor = min(factor * 2.0, GMIN_FACTOR)
+            x, leak_g = result.x, trial
+            factor = min(factor * 2.0, LEAK_FACTOR)
             continue
         factor = np.sqrt(factor)
         if factor < 1.01:
             break
-    if gmin == 0:
+    if leak_g == 0:
         return x, total
     raise LadderFailed(total)
 
 
-def source_stepping(system: System, factorizer: Factorizer, leak: np.ndarray | None, t: float,
+def source_ramping(system: System, factorizer: Factorizer, leak: np.ndarray | None, t: float,
                     x0: np.ndarray, discrete: DiscreteStates | None = None) -> tuple[np.ndarray, int]:
     """Raise every source from 0 to its full value; (x, Newton iterations).
 

@@ -2,7 +2,7 @@
 
 Netlist::
 
-    coupling     K1  L1 L2 0.98                        # k: M = k*sqrt(L1*L2)
+    coupling     Core  Lpri Lsec 0.98                  # k: M = k*sqrt(Lpri*Lsec)
     transformer  T1  a -> b, c -> d  ratio=10  magnetising=2 mH  leakage=20 uH
     choke        L2  a -> b  100 uH  saturation-current=5 A  saturated-inductance=10 uH
     solenoid     L3  a -> b  turns=120  diameter=16 mm  length=40 mm  permeability=1
@@ -39,7 +39,7 @@ from .passive import Inductor, TwoTerminal
 
 
 class Coupling(Element):
-    """``coupling K1 L1 L2 0.98``: mutual inductance ``M = k*sqrt(L1*L2)`` between inductors.
+    """``coupling Core Lpri Lsec 0.98``: mutual inductance ``M = k*sqrt(L1*L2)`` between inductors.
 
     Linear: it adds ``M`` to the capacitance-like matrix between the
     inductors' branch rows and currents, and ``M*I0`` to each one's initial

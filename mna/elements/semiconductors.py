@@ -9,26 +9,31 @@ Netlist::
 
 The junction current (the kernels below are plain functions on arrays)::
 
-    I(v) = Is*(exp(v/(n*Vt)) - 1)                           Shockley
-         - Ibv*(exp(-(v + BV)/(nbv*Vt)) - exp(-BV/(nbv*Vt))) reverse breakdown
-         + GMIN_JUNCTION*v                                   leakage floor
+    I(v) = Isat*(exp(v/(n*Vt)) - 1)                             Shockley
+         - Ibr*(exp(-(v + Vbr)/(nbr*Vt)) - exp(-Vbr/(nbr*Vt)))   reverse breakdown
+         + JUNCTION_LEAK*v                                      leakage floor
 
+with the symbols of a datasheet: ``Vbr`` the reverse breakdown voltage
+(``breakdown=``), ``Ibr`` the reverse current at ``v = -Vbr``
+(``breakdown-current=``), so ``breakdown=`` and ``breakdown-current=`` are a
+Zener's Vz at its test current Izt; ``nbr`` the slope factor of the
+breakdown knee (``breakdown-ideality=``); ``Isat`` the saturation current
+of the Shockley equation (``saturation-current=``), ``n`` its ideality.
 ``Vt = k*T/q`` from the CODATA constants in ``scipy.constants`` (exact in
-the 2019 SI); ``T`` is ``temperature=`` (default 300.15 K, 27 degC, where
-Vt = 25.8649 mV). The breakdown term is zero unless ``breakdown=`` is given;
-it makes the reverse current reach ``breakdown-current=`` at ``v = -BV``,
-so ``breakdown=`` and ``breakdown-current=`` are a Zener's Vz at its test
-current Izt. ``resistance=`` is in series with the junction (an internal
+the 2019 SI); ``T`` is ``temperature=`` (default 298.15 K, 25 degC, the
+reference temperature of datasheet tables, where Vt = 25.6926 mV). The
+breakdown term is zero unless ``breakdown=`` is given. ``resistance=`` is in series with the junction (an internal
 node, shown as ``junction(D1)`` in error messages); ``capacitance=`` is a
 constant junction capacitance across the junction (no depletion law).
 Above ``exp(EXP_LIMIT)`` the exponentials continue as straight lines so
 no evaluation can overflow.
 
 Newton safeguard: :meth:`DiodeBatch.limit` applies the logarithmic
-junction-voltage limiting of L. W. Nagel, "SPICE2: A computer program to
-simulate semiconductor circuits", UCB ERL-M520 (1975) (the algorithm as
-described there, from memory; also Vlach & Singhal ch. 8): above the
-critical voltage ``Vcrit = n*Vt*ln(n*Vt/(sqrt(2)*Is))`` a forward step is
+junction-voltage limiting of L. W. Nagel, University of California,
+Berkeley, Electronics Research Laboratory memorandum ERL-M520 (1975) (the
+algorithm as described there, from memory; also Vlach & Singhal, *Computer
+Methods for Circuit Analysis and Design*, ch. 8): above the critical
+voltage ``Vcrit = n*Vt*ln(n*Vt/(sqrt(2)*Isat))`` a forward step is
 shortened to ``n*Vt*ln(1 + dv/(n*Vt))``. The same rule guards the
 breakdown knee. The whole Newton update is then scaled so no junction moves
 further than its limit (the direction of the step is kept).
@@ -48,15 +53,16 @@ from .batching import BranchPattern
 from .passive import TwoTerminal
 
 #: Conductance (S) across every junction: keeps a reverse-biased junction's
-#: row from vanishing (common practice in circuit simulators; 1e-12 S adds
-#: 12 pA of leakage at 12 V reverse).
-GMIN_JUNCTION = 1e-12
+#: row from vanishing (common practice; 1e-12 S adds 12 pA of leakage at
+#: 12 V reverse).
+JUNCTION_LEAK = 1e-12
 
 #: Exponent above which exp() continues as its tangent line (no overflow).
 EXP_LIMIT = 80.0
 
-#: Default junction temperature (K): 27 degC.
-DEFAULT_TEMPERATURE = 300.15
+#: Default junction temperature (K): 25 degC, the reference temperature of
+#: datasheet tables.
+DEFAULT_TEMPERATURE = 298.15
 
 
 def thermal_voltage(temperature: float | np.ndarray) -> float | np.ndarray:
@@ -72,38 +78,38 @@ def safe_exp(a: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return value, e
 
 
-def junction_current(v: np.ndarray, isat: np.ndarray, nvt: np.ndarray, bv: np.ndarray,
-                     ibv: np.ndarray, nbvt: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def junction_current(v: np.ndarray, isat: np.ndarray, nvt: np.ndarray, vbr: np.ndarray,
+                     ibr: np.ndarray, nbr_vt: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Junction current (A) and conductance dI/dv (S) at junction voltage ``v`` (V).
 
-    ``bv`` is the breakdown voltage (V, positive; any value where ``ibv`` is
-    0 means no breakdown), ``ibv`` the reverse current at ``v = -bv`` (A),
-    ``nbvt`` the breakdown slope voltage ``nbv*Vt`` (V).
+    ``vbr`` is the breakdown voltage (V, positive; any value where ``ibr`` is
+    0 means no breakdown), ``ibr`` the reverse current at ``v = -vbr`` (A),
+    ``nbr_vt`` the breakdown slope voltage ``nbr*Vt`` (V).
     """
     current, conductance = forward_current(v, isat, nvt)
-    if np.any(ibv > 0):
-        i_bd, g_bd = breakdown_current(v, bv, ibv, nbvt)
+    if np.any(ibr > 0):
+        i_bd, g_bd = breakdown_current(v, vbr, ibr, nbr_vt)
         current = current + i_bd
         conductance = conductance + g_bd
     return current, conductance
 
 
 def forward_current(v: np.ndarray, isat: np.ndarray, nvt: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Shockley current plus the GMIN_JUNCTION floor, and its conductance."""
+    """Shockley current plus the JUNCTION_LEAK floor, and its conductance."""
     ef, dfwd = safe_exp(v / nvt)
-    return isat * (ef - 1.0) + GMIN_JUNCTION * v, isat / nvt * dfwd + GMIN_JUNCTION
+    return isat * (ef - 1.0) + JUNCTION_LEAK * v, isat / nvt * dfwd + JUNCTION_LEAK
 
 
-def breakdown_current(v: np.ndarray, bv: np.ndarray, ibv: np.ndarray,
-                      nbvt: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def breakdown_current(v: np.ndarray, vbr: np.ndarray, ibr: np.ndarray,
+                      nbr_vt: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Reverse-breakdown current (negative, A) and its conductance (S); 0 at v = 0."""
-    er, drev = safe_exp(-(v + bv) / nbvt)
-    er0 = np.exp(np.maximum(-bv / nbvt, -10 * EXP_LIMIT))
-    return -ibv * (er - er0), ibv / nbvt * drev
+    er, drev = safe_exp(-(v + vbr) / nbr_vt)
+    er0 = np.exp(np.maximum(-vbr / nbr_vt, -10 * EXP_LIMIT))
+    return -ibr * (er - er0), ibr / nbr_vt * drev
 
 
 def critical_voltage(isat: np.ndarray, nvt: np.ndarray) -> np.ndarray:
-    """``n*Vt*ln(n*Vt/(sqrt(2)*Is))``: where the exponential's curvature is largest (V)."""
+    """``n*Vt*ln(n*Vt/(sqrt(2)*Isat))``: where the exponential's curvature is largest (V)."""
     return nvt * np.log(nvt / (math.sqrt(2.0) * isat))
 
 
@@ -137,18 +143,18 @@ class Diode(TwoTerminal):
     keyword = "diode"
     arguments = (
         Arg("saturation-current", AMPERE, default=1e-14, positive=True,
-            doc="Is of the Shockley equation"),
+            doc="Isat of the Shockley equation"),
         Arg("ideality", DIMENSIONLESS, default=1.0, positive=True, doc="ideality factor n (1 to 2)"),
         Arg("resistance", OHM, default=0.0, nonnegative=True, doc="series resistance"),
         Arg("capacitance", FARAD, default=0.0, nonnegative=True, doc="constant junction capacitance"),
         Arg("breakdown", VOLT, default=None, positive=True,
-            doc="reverse breakdown voltage (Zener voltage Vz); none by default"),
+            doc="reverse breakdown voltage Vbr (a Zener's Vz); none by default"),
         Arg("breakdown-current", AMPERE, default=1e-3, positive=True,
-            doc="reverse current at v = -breakdown (the Zener test current)"),
+            doc="reverse current Ibr at v = -Vbr (a Zener's test current Izt)"),
         Arg("breakdown-ideality", DIMENSIONLESS, default=1.0, positive=True,
-            doc="slope factor of the breakdown exponential"),
+            doc="slope factor nbr of the breakdown exponential"),
         Arg("temperature", KELVIN, default=DEFAULT_TEMPERATURE, positive=True,
-            doc="junction temperature (default 300.15 K)"),
+            doc="junction temperature (default 298.15 K, 25 degC)"),
     )
     summary = "junction diode (Shockley) with series resistance, capacitance and optional breakdown"
 
@@ -171,13 +177,13 @@ class Diode(TwoTerminal):
         return self.params["breakdown"] is not None
 
     def junction_law(self) -> tuple[float, float, float, float, float]:
-        """(Is, nVt, BV, Ibv, nbv*Vt) with Ibv = 0 when there is no breakdown."""
+        """(Isat, n*Vt, Vbr, Ibr, nbr*Vt) with Ibr = 0 when there is no breakdown."""
         vt = thermal_voltage(self.params["temperature"])
         if self.has_breakdown:
-            bv, ibv = self.params["breakdown"], self.params["breakdown-current"]
+            vbr, ibr = self.params["breakdown"], self.params["breakdown-current"]
         else:
-            bv, ibv = 1.0, 0.0
-        return self.params["saturation-current"], self.nvt, bv, ibv, self.params["breakdown-ideality"] * vt
+            vbr, ibr = 1.0, 0.0
+        return self.params["saturation-current"], self.nvt, vbr, ibr, self.params["breakdown-ideality"] * vt
 
     # -- topology and compile --------------------------------------------------------
     def branches(self):
@@ -219,12 +225,12 @@ class DiodeBatch(NonlinearBatch):
         super().__init__(elements, stamper)
         self.pattern = BranchPattern(np.array([e._p for e in elements]), np.array([e._k for e in elements]))
         law = np.array([e.junction_law() for e in elements], dtype=float)
-        self.isat, self.nvt, self.bv, self.ibv, self.nbvt = law.T
+        self.isat, self.nvt, self.vbr, self.ibr, self.nbr_vt = law.T
         self.vcrit = critical_voltage(self.isat, self.nvt)
-        self.breakdown = self.ibv > 0
+        self.breakdown = self.ibr > 0
         self.any_breakdown = bool(np.any(self.breakdown))
-        self.vcrit_bv = np.where(self.breakdown, critical_voltage(np.where(self.breakdown, self.ibv, 1.0),
-                                                                  self.nbvt), np.inf)
+        self.vcrit_br = np.where(self.breakdown, critical_voltage(np.where(self.breakdown, self.ibr, 1.0),
+                                                                  self.nbr_vt), np.inf)
         self.f_rows = self.pattern.f_rows
         self.jf_rows, self.jf_cols = self.pattern.jf_rows, self.pattern.jf_cols
 
@@ -232,7 +238,7 @@ class DiodeBatch(NonlinearBatch):
         v = self.pattern.across(x)
         i, g = forward_current(v, self.isat, self.nvt)
         if self.any_breakdown:
-            i_bd, g_bd = breakdown_current(v, self.bv, self.ibv, self.nbvt)
+            i_bd, g_bd = breakdown_current(v, self.vbr, self.ibr, self.nbr_vt)
             i, g = i + i_bd, g + g_bd
         return self.pattern.f_values(i), self.pattern.jf_values(g), self.empty, self.empty
 
@@ -248,11 +254,11 @@ class DiodeBatch(NonlinearBatch):
         if v_lim is v_new and not self.any_breakdown:
             return x_new  # every junction above vcrit moved less than 2 nVt
         if self.any_breakdown:
-            # The same rule on the reverse voltage beyond the knee, u = -(v + BV).
-            u_new, u_old = -(v_lim + self.bv), -(v_old + self.bv)
-            u_lim = limit_junction(u_new, u_old, self.nbvt, self.vcrit_bv)
+            # The same rule on the reverse voltage beyond the knee, u = -(v + Vbr).
+            u_new, u_old = -(v_lim + self.vbr), -(v_old + self.vbr)
+            u_lim = limit_junction(u_new, u_old, self.nbr_vt, self.vcrit_br)
             # (only where the limit acted: the round trip v -> u -> v is not exact)
-            v_lim = np.where(self.breakdown & (u_lim != u_new), -u_lim - self.bv, v_lim)
+            v_lim = np.where(self.breakdown & (u_lim != u_new), -u_lim - self.vbr, v_lim)
         return scale_step(x_new, x_old, v_new, v_old, v_lim)
 
 
