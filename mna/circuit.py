@@ -86,7 +86,13 @@ TRANSIENT_SETTINGS: dict[str, Arg] = {
     "memory-limit": Arg("memory-limit", DIMENSIONLESS, default=None, positive=True,
                         doc="most memory for a run's recorded results, in MB"),
 }
-ANALYSES: dict[str, dict[str, Arg]] = {"dc": {}, "transient": TRANSIENT_SETTINGS}
+FREQUENCY_SETTINGS: dict[str, Arg] = {
+    "from": Arg("from", HERTZ, default=None, positive=True, doc="lowest frequency of a sweep"),
+    "to": Arg("to", HERTZ, default=None, positive=True, doc="highest frequency of a sweep"),
+    "per-decade": Arg("per-decade", DIMENSIONLESS, default=50, positive=True, doc="points per decade"),
+    "at": Arg("at", None, default=None, kind="expr", doc="list(F1, F2, ...): these frequencies only"),
+}
+ANALYSES: dict[str, dict[str, Arg]] = {"dc": {}, "transient": TRANSIENT_SETTINGS, "frequency": FREQUENCY_SETTINGS}
 
 
 # --------------------------------------------------------------------------
@@ -503,6 +509,10 @@ class Elaborator:
             from .analyses.settings import check_request
 
             self.circuit.warnings.extend(check_request(settings, st.analysis_span))
+        if st.analysis == "frequency":
+            from .frequency_settings import check_frequency_settings
+
+            check_frequency_settings(settings, spans, st, self)
         return AnalysisRequest(st.analysis, settings, st.analysis_span, spans)
 
 
@@ -541,6 +551,7 @@ class Circuit:
         self.definitions: dict[str, nl.Expr] = {}  # let NAME -> its expression, as written
         self.analyses: list[AnalysisRequest] = []
         self.records: list[SignalRef] = []
+        self.frequency_records: list[SignalRef] = []  # records of simulate frequency (with z() and ratios)
         self.measures: list[nl.MeasureStatement] = []
         self.checks: list[nl.CheckStatement] = []
         self.warnings: list[str] = []
@@ -668,11 +679,26 @@ class Circuit:
         for text in signals:
             st = parse_netlist(f"record {text}").statements[0]
             for q in st.quantities:
-                self.records.append(self.signal_ref(q))
+                self._add_record(self.signal_ref(q))
+
+    def _add_record(self, ref: SignalRef) -> None:
+        """Keep a recorded quantity: every one for ``simulate frequency``, and those
+        that exist over time (not impedances and ratios) for the other analyses."""
+        if ref.small_signal_only and self.analyses and not any(a.analysis == "frequency" for a in self.analyses):
+            raise InputError(f"{ref.label} is a small-signal quantity: only 'simulate frequency' computes it",
+                             ref.span, hint="add a line such as 'simulate frequency from=10 Hz to=1 MHz'")
+        if not any(r.label == ref.label for r in self.frequency_records):
+            self.frequency_records.append(ref)
+        if not ref.small_signal_only and not any(r.label == ref.label for r in self.records):
+            self.records.append(ref)
 
     # -- signal references ------------------------------------------------------
     def signal_ref(self, expr: nl.Expr) -> SignalRef:
-        """Resolve ``v(sw)``, ``i(L1)``, ``v(a -> b)``, ``v(R1)`` ... against this circuit."""
+        """Resolve ``v(sw)``, ``i(L1)``, ``v(a -> b)``, ``v(R1)``, ``z(a -> b)``, ``v(out) / v(in)``
+        ... against this circuit."""
+        small = _small_signal_ref(self, expr)
+        if small is not None:
+            return small
         if (not isinstance(expr, nl.Call) or expr.named or len(expr.args) != 1
                 or not isinstance(expr.args[0], (nl.Name, nl.NodePair))):
             if (isinstance(expr, nl.Call) and not expr.named and len(expr.args) == 2
@@ -775,6 +801,36 @@ class Circuit:
                 records.extend(self.signal_ref(q) for q in st.quantities)
         return transient(self, settings, records)
 
+    def frequency(
+        self,
+        low: float | str | None = None,
+        high: float | str | None = None,
+        per_decade: float = 50,
+        at: Iterable[float | str] | None = None,
+        record: Iterable[str] | None = None,
+    ):
+        """Small-signal frequency response at the DC operating point.
+
+        Sweeps ``low`` to ``high`` (Hz, or text such as ``"10 Hz"``) with
+        ``per_decade`` points per decade, or solves at the frequencies
+        ``at``. ``record`` names quantities as in a ``record`` line
+        (``"v(out)"``, ``"z(out -> gnd)"``, ``"v(out) / v(in)"``); by default
+        the file's records, else every node voltage and element current.
+        Returns :class:`~mna.results.FrequencyResponse`: ``res.frequency``
+        (Hz) and ``res["v(out)"]``, complex numpy arrays (SI units).
+        """
+        from .analyses.frequency import frequency_response
+        from .frequency_settings import python_settings
+
+        settings = python_settings(low, high, per_decade, at)
+        records = None
+        if record is not None:
+            records = []
+            for text in record:
+                st = nl.parse_netlist(f"record {text}").statements[0]
+                records.extend(self.signal_ref(q) for q in st.quantities)
+        return frequency_response(self, settings, records)
+
     def run(self) -> list:
         """Run the file's own ``simulate`` lines, in order; returns their results.
 
@@ -795,6 +851,33 @@ def _element_quantities() -> set[str]:
     from .elements.registry import element_kinds
 
     return {q for cls in element_kinds().values() for q in cls.outputs}
+
+
+def _small_signal_ref(circuit: "Circuit", expr: nl.Expr) -> SignalRef | None:
+    """``z(a -> b)`` (impedance between two nodes) or ``Q1 / Q2`` (a ratio), else None."""
+    from .units import OHM
+
+    if isinstance(expr, nl.Call) and expr.func == "z":
+        if len(expr.args) != 1 or expr.named or not isinstance(expr.args[0], nl.NodePair):
+            raise InputError("z() takes two nodes with an arrow: z(a -> b), the impedance seen from a to b",
+                             expr.span)
+        pair = expr.args[0]
+        for node, span in ((pair.a, pair.a_span), (pair.b, pair.b_span)):
+            circuit._require_node(node, ELECTRICAL, span)
+        if pair.a == pair.b:
+            raise InputError(f"z({pair.a} -> {pair.b}) joins a node to itself", pair.span)
+        return SignalRef("z", (pair.a, pair.b), "impedance", OHM, expr.span)
+    if isinstance(expr, nl.BinaryOp) and expr.op == "/":
+        parts = []
+        for side in (expr.left, expr.right):
+            if not isinstance(side, nl.Call):
+                raise InputError("a ratio divides one circuit quantity by another, like v(out) / v(in)",
+                                 getattr(side, "span", expr.span))
+            parts.append(circuit.signal_ref(side))
+        if any(p.target == "ratio" for p in parts):  # pragma: no cover - the grammar nests left to right
+            raise InputError("a ratio of ratios is not a quantity; write one ratio", expr.span)
+        return SignalRef("ratio", (), "ratio", parts[0].dimension / parts[1].dimension, expr.span, tuple(parts))
+    return None
 
 
 def _seconds(value: float | str, what: str) -> float:
@@ -905,10 +988,7 @@ def elaborate(netlist: nl.Netlist, block_overrides: dict[str, Quantity] | None =
     # Records may name elements defined further down the file.
     for st in pending_records:
         for q in st.quantities:
-            ref = circuit.signal_ref(q)
-            if any(r.label == ref.label for r in circuit.records):
-                continue
-            circuit.records.append(ref)
+            circuit._add_record(circuit.signal_ref(q))
     from .measure import validate  # measure and check lines, before anything runs
 
     validate(circuit)

@@ -147,6 +147,7 @@ def _write_results(circuit, results: list, out_dir: Path, args, say) -> dict[str
     outputs: dict[str, str] = {}
     transient_count = sum(isinstance(r, Waveforms) for r in results)
     k = 0
+    _write_frequency_results(circuit, results, out_dir, args, say, outputs)
     for result in results:
         if isinstance(result, OperatingPoint):
             say("  dc operating point:")
@@ -169,6 +170,25 @@ def _write_results(circuit, results: list, out_dir: Path, args, say) -> dict[str
                 f"{st['factorizations']} factorisation{'s' if st['factorizations'] != 1 else ''}, "
                 f"{st['wall_time_s']:.3g} s")
     return outputs
+
+
+def _write_frequency_results(circuit, results: list, out_dir: Path, args, say, outputs: dict[str, str]) -> None:
+    """CSV (magnitude, dB, phase) and Bode PNG of each frequency analysis."""
+    from .results import FrequencyResponse
+
+    responses = [r for r in results if isinstance(r, FrequencyResponse)]
+    for k, res in enumerate(responses, start=1):
+        suffix = "" if len(responses) == 1 else f"-{k}"
+        outputs[f"frequency-csv{suffix}"] = str(res.to_csv(out_dir / f"frequency{suffix}.csv"))
+        if not args.no_plot and res.frequency.size > 1 and res.labels():
+            from .bode import plot_bode
+
+            png = plot_bode(out_dir / f"bode{suffix}.png", res, circuit.title or circuit.name)
+            outputs[f"bode{suffix}"] = str(png)
+        st = res.statistics
+        say(f"  frequency response at {st['frequencies']} frequencies, {_fmt(float(res.frequency[0]), 'Hz')} "
+            f"to {_fmt(float(res.frequency[-1]), 'Hz')}: {st['unknowns']} unknowns, {st['solver']} solves, "
+            f"{st['wall_time_s']:.3g} s")
 
 
 def _recorded(circuit, waves):

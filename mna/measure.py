@@ -198,6 +198,11 @@ def recording(circuit: "Circuit") -> list["SignalRef"]:
     return list(refs.values())
 
 
+def frequency_recording(circuit: "Circuit") -> list["SignalRef"] | None:
+    """What a frequency analysis keeps: the file's records (None: the default set)."""
+    return list(circuit.frequency_records) or None
+
+
 # --------------------------------------------------------------------------
 # Evaluating calls: the hook given to mna.expressions.evaluate.
 
@@ -900,6 +905,10 @@ def run_and_check(circuit: "Circuit", progress: Callable[[float, float], None] |
         try:
             if request.analysis == "dc":
                 results.append(circuit.dc(signals=signals_used(circuit)))
+            elif request.analysis == "frequency":
+                from .analyses.frequency import frequency_response
+
+                results.append(frequency_response(circuit, dict(request.settings), frequency_recording(circuit)))
             else:
                 settings = dict(request.settings)
                 if progress is not None:

@@ -42,6 +42,11 @@ def summary(circuit, results: list, outputs: dict[str, str] | None = None,
             entry["operating_point"] = {k: {"value": v, "unit": result.units.get(k, "")}
                                         for k, v in result.values.items()}
             entry["status"] = "ok"
+        elif getattr(result, "analysis", "") == "frequency":
+            entry["status"] = result.status
+            entry["signals"] = {k: result.units.get(k, "") for k in result.labels()}
+            entry["frequency_hz"] = {"from": float(result.frequency[0]), "to": float(result.frequency[-1]),
+                                     "points": int(result.frequency.size)}
         elif isinstance(result, Waveforms):
             entry["status"] = result.status
             if result.message:

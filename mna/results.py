@@ -135,3 +135,79 @@ def write_atomic(path: str | Path, text: str | bytes) -> Path:
             pass
         raise
     return path
+
+
+@dataclass
+class FrequencyResponse:
+    """Small-signal results: ``res.frequency`` (Hz) and ``res["v(out)"]``, complex arrays (SI).
+
+    Each quantity is a phasor per frequency: its magnitude is the small-signal
+    amplitude (the unit of the quantity, ohm for ``z(a -> b)``), its angle the
+    phase against the stimuli.
+    """
+
+    frequency: np.ndarray
+    signals: dict[str, np.ndarray]
+    units: dict[str, str]
+    statistics: dict[str, Any] = field(default_factory=dict)
+    warnings: list[str] = field(default_factory=list)
+    status: str = "ok"
+    message: str = ""
+    analysis: str = "frequency"
+
+    def __getitem__(self, label: str) -> np.ndarray:
+        if label == "frequency":
+            return self.frequency
+        try:
+            return self.signals[_normal_quantity(label)]
+        except KeyError:
+            raise KeyError(_missing(label, self.signals)) from None
+
+    def __contains__(self, label: str) -> bool:
+        return _normal_quantity(label) in self.signals
+
+    def __iter__(self) -> Iterator[str]:
+        return iter(self.signals)
+
+    def labels(self) -> list[str]:
+        return list(self.signals)
+
+    def magnitude(self, label: str) -> np.ndarray:
+        """|x| in the quantity's unit."""
+        return np.abs(self[label])
+
+    def decibels(self, label: str) -> np.ndarray:
+        """20*log10(|x|), against 1 of the quantity's unit (1 V, 1 ohm, or 1 for a ratio)."""
+        with np.errstate(divide="ignore"):
+            return 20.0 * np.log10(np.abs(self[label]))
+
+    def phase(self, label: str) -> np.ndarray:
+        """Phase in degrees, continuous over frequency, the first point within (-180, 180]."""
+        return continuous_phase(self[label])
+
+    def to_csv(self, path: str | Path) -> Path:
+        """``frequency`` (Hz), then per quantity its magnitude, dB and phase (deg); atomic."""
+        buf = io.StringIO()
+        writer = csv.writer(buf, lineterminator="\n")
+        labels = self.labels()
+        header = ["frequency"]
+        for label in labels:
+            header += [f"|{label}|", f"dB {label}", f"deg {label}"]
+        writer.writerow(header)
+        columns = [self.frequency]
+        for label in labels:
+            columns += [self.magnitude(label), self.decibels(label), self.phase(label)]
+        np.savetxt(buf, np.column_stack(columns), delimiter=",", fmt="%.10g")
+        return write_atomic(path, buf.getvalue())
+
+
+def _normal_quantity(label: str) -> str:
+    """``z(a->b)`` -> ``z(a -> b)``, ``v(out) / v(in)`` -> ``v(out)/v(in)``: labels as stored."""
+    compact = "".join(label.split())
+    return compact.replace("->", " -> ").replace(",", ", ")
+
+
+def continuous_phase(values: np.ndarray) -> np.ndarray:
+    """Phase (deg) of complex values, unwrapped along the array; the first within (-180, 180]."""
+    phase = np.unwrap(np.angle(values))
+    return np.degrees(phase)

@@ -207,6 +207,7 @@ class System:
     dc_hold_rows: np.ndarray = field(default_factory=lambda: np.empty(0, dtype=np.int64))
     dc_hold_values: np.ndarray = field(default_factory=lambda: np.empty(0))
     dc_hold_mask: np.ndarray | None = None  # CSC data entries in the held rows
+    source_waveforms: list[Waveform] = field(default_factory=list)  # of each source entry, in order
 
     @property
     def n(self) -> int:
@@ -596,6 +597,7 @@ def compile_circuit(circuit: "Circuit") -> System:
         dc_hold_rows=hold_rows,
         dc_hold_values=hold_values,
         dc_hold_mask=np.isin(indices, hold_rows) if hold_rows.size else None,
+        source_waveforms=[wave for _, _, wave in s.sources],
     )
 
 
@@ -647,3 +649,8 @@ class Probe:
             self.need_states.add(state)
             return np.zeros_like(self.time)
         return self._rates[state]
+
+    def waveform(self, wave: Waveform) -> np.ndarray:
+        """A source waveform's values at the recorded times (read through the probe so a
+        small-signal analysis can see what a source's output depends on)."""
+        return np.asarray(wave.values(self.time), dtype=float)

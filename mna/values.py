@@ -101,10 +101,19 @@ class SignalRef:
     target: str
     dimension: Dimension
     span: Span | None = None
+    parts: tuple["SignalRef", ...] = ()  # a ratio's numerator and denominator
 
     @property
     def label(self) -> str:
+        if self.target == "ratio":
+            return f"{self.parts[0].label}/{self.parts[1].label}"
         return f"{self.quantity}({' -> '.join(self.names)})"
+
+    @property
+    def small_signal_only(self) -> bool:
+        """An impedance ``z(a -> b)`` or a ratio ``v(out) / v(in)``: only ``simulate
+        frequency`` computes it (``target`` is ``"impedance"`` or ``"ratio"``)."""
+        return self.target in ("impedance", "ratio")
 
     @property
     def unit(self) -> str:

@@ -4,13 +4,40 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..units import AMPERE, VOLT
+import cmath
+
+from ..units import AMPERE, DIMENSIONLESS, VOLT
 from ..waveforms import Waveform
 from .base import CURRENT, VOLTAGE, Arg, Branch, Unknown
 from .passive import TwoTerminal
 
 
-class VoltageSource(TwoTerminal):
+class SmallSignalSource(TwoTerminal):
+    """A source with an optional small-signal part for ``simulate frequency``:
+    ``stimulus=`` (magnitude, the source's unit) and ``stimulus-phase=``."""
+
+    @property
+    def waveform(self) -> Waveform:
+        return self.params[self.main]
+
+    @property
+    def stimulus(self) -> complex | None:
+        """The small-signal phasor (SI), or None without ``stimulus=``."""
+        magnitude = self.params.get("stimulus")
+        if magnitude is None:
+            return None
+        return cmath.rect(magnitude, self.params.get("stimulus-phase") or 0.0)
+
+
+def _stimulus_args(unit) -> tuple[Arg, ...]:
+    return (
+        Arg("stimulus", unit, default=None, nonnegative=True,
+            doc="small-signal magnitude for simulate frequency"),
+        Arg("stimulus-phase", DIMENSIONLESS, default=0.0, doc="phase of the stimulus (deg or rad)"),
+    )
+
+
+class VoltageSource(SmallSignalSource):
     """``voltage-source V1 a -> b 24 V`` (or a waveform): v(a) - v(b) = V(t).
 
     Its current flows from ``a`` through the source to ``b``, so a source
@@ -19,12 +46,8 @@ class VoltageSource(TwoTerminal):
 
     keyword = "voltage-source"
     main = "voltage"
-    arguments = (Arg("voltage", VOLT, kind="waveform", doc="value or waveform"),)
+    arguments = (Arg("voltage", VOLT, kind="waveform", doc="value or waveform"), *_stimulus_args(VOLT))
     summary = "independent voltage source"
-
-    @property
-    def waveform(self) -> Waveform:
-        return self.params["voltage"]
 
     def branches(self):
         return [Branch(self.nodes["a"], self.nodes["b"], VOLTAGE)]
@@ -47,23 +70,19 @@ class VoltageSource(TwoTerminal):
         return self.waveform.jumps(start, stop)
 
     def across(self, probe):
-        return self.waveform.values(probe.time)
+        return probe.waveform(self.waveform)
 
     def current(self, probe):
         return probe.unknown(self, "i")
 
 
-class CurrentSource(TwoTerminal):
+class CurrentSource(SmallSignalSource):
     """``current-source I1 a -> b 2 A`` (or a waveform): I(t) flows a -> b through it."""
 
     keyword = "current-source"
     main = "current"
-    arguments = (Arg("current", AMPERE, kind="waveform", doc="value or waveform"),)
+    arguments = (Arg("current", AMPERE, kind="waveform", doc="value or waveform"), *_stimulus_args(AMPERE))
     summary = "independent current source"
-
-    @property
-    def waveform(self) -> Waveform:
-        return self.params["current"]
 
     def branches(self):
         return [Branch(self.nodes["a"], self.nodes["b"], CURRENT)]
@@ -81,4 +100,4 @@ class CurrentSource(TwoTerminal):
         return self.waveform.jumps(start, stop)
 
     def current(self, probe):
-        return np.asarray(self.waveform.values(probe.time), dtype=float)
+        return probe.waveform(self.waveform)
