@@ -44,6 +44,7 @@ import numpy as np
 
 from ..errors import InputError, SimulationError
 from ..results import FrequencyResponse
+from ..runstate import DiscreteStates
 from ..solver import Factorizer
 from ..system import DENSE_LIMIT, System
 from ..units import OHM
@@ -97,6 +98,7 @@ class SmallSignal:
     C_data: np.ndarray
     stimulus: dict[int, complex]
     rhs: np.ndarray  # complex, the small-signal source vector S
+    discrete: DiscreteStates | None = None
 
     def matrix_data(self, omega: float) -> np.ndarray:
         return self.G_data + 1j * omega * self.C_data
@@ -113,12 +115,14 @@ def stimuli(circuit: "Circuit") -> dict[int, complex]:
     return found
 
 
-def linearise(system: System, x0: np.ndarray, leak: np.ndarray | None, stimulus: dict[int, complex]) -> SmallSignal:
-    """The small-signal system at the operating point ``x0`` (batches evaluated at t = 0)."""
+def linearise(system: System, x0: np.ndarray, leak: np.ndarray | None, stimulus: dict[int, complex],
+              discrete: DiscreteStates | None = None) -> SmallSignal:
+    """The small-signal system at the operating point ``x0`` (batches evaluated at t = 0,
+    switches in the states ``discrete`` of the operating point)."""
     G_data = system.G_data.copy()
     C_data = system.C_data.copy()
     if system.batches:
-        _, _, jf, jq = system.evaluate_batches(x0, 0.0)
+        _, _, jf, jq = system.evaluate_batches(x0, 0.0, discrete)
         size = G_data.size
         for slot, vf, vq in zip(system.batches, jf, jq):
             if vf.size:
@@ -133,7 +137,7 @@ def linearise(system: System, x0: np.ndarray, leak: np.ndarray | None, stimulus:
             phasor = stimulus.get(id(wave))
             if phasor is not None:
                 rhs[row] += coef * phasor
-    return SmallSignal(system, x0, G_data, C_data, stimulus, rhs)
+    return SmallSignal(system, x0, G_data, C_data, stimulus, rhs, discrete)
 
 
 # --------------------------------------------------------------------------
@@ -275,14 +279,18 @@ class _PlanProbe:
         self.deps[("wave", id(wave))] = wave
         return np.zeros(1)
 
+    def state_log(self, element) -> tuple[np.ndarray, np.ndarray]:
+        return np.empty(0), np.empty(0)
+
 
 class _PerturbedProbe:
     """Operating values with each dependency stepped by +-h in its own pair of samples."""
 
     planning = False
 
-    def __init__(self, system: System, x0: np.ndarray, deps: list, steps: np.ndarray):
+    def __init__(self, system: System, x0: np.ndarray, deps: list, steps: np.ndarray, discrete=None):
         self.system = system
+        self._discrete = discrete
         m = 2 * len(deps)
         self.time = np.zeros(m)
         self._x0 = x0
@@ -315,6 +323,12 @@ class _PerturbedProbe:
     def waveform(self, wave) -> np.ndarray:
         return self._series(("wave", id(wave)), float(wave.value(0.0)))
 
+    def state_log(self, element) -> tuple[np.ndarray, np.ndarray]:
+        """The operating point's discrete states (a switch's closed = 1.0), held."""
+        if self._discrete is None:
+            return np.empty(0), np.empty(0)
+        return self._discrete.log(element)
+
 
 def _step(key, value, x0: np.ndarray) -> float:
     kind, what = key
@@ -327,7 +341,7 @@ def _step(key, value, x0: np.ndarray) -> float:
     return RELATIVE_STEP * max(base, 1e-3)
 
 
-def output_sensitivities(element, quantity: str, system: System, x0: np.ndarray) -> dict:
+def output_sensitivities(element, quantity: str, system: System, x0: np.ndarray, discrete=None) -> dict:
     """d output / d dependency at the operating point, for each dependency the output reads."""
     plan = _PlanProbe(system)
     element.output(quantity, plan)
@@ -335,7 +349,7 @@ def output_sensitivities(element, quantity: str, system: System, x0: np.ndarray)
     if not keys:
         return {}
     steps = np.array([_step(k, plan.deps[k], x0) for k in keys])
-    probe = _PerturbedProbe(system, x0, keys, steps)
+    probe = _PerturbedProbe(system, x0, keys, steps, discrete)
     values = np.asarray(element.output(quantity, probe), dtype=float)
     values = np.broadcast_to(values, (2 * len(keys),))
     slopes = (values[0::2] - values[1::2]) / (2.0 * steps)
@@ -382,7 +396,7 @@ class _Phasors:
         slopes = self._sensitivities.get(key)
         if slopes is None:
             slopes = self._sensitivities[key] = output_sensitivities(element, ref.quantity, self.system,
-                                                                     self.small.x0)
+                                                                     self.small.x0, self.small.discrete)
         total = np.zeros(self.omega.size, dtype=complex)
         for (kind, what), slope in slopes.items():
             if kind == "x":
@@ -412,9 +426,10 @@ def frequency_response(circuit: "Circuit", settings: dict[str, Any],
     system, report = prepare(circuit)
     leak = dc_leak(system, report)
     info: dict = {}
-    x0, iterations = solve_dc(system, Factorizer(system), leak, info=info)
+    discrete = DiscreteStates(system, 0.0)
+    x0, iterations = solve_dc(system, Factorizer(system), leak, info=info, discrete=discrete)
     stimulus = stimuli(circuit)
-    small = linearise(system, x0, leak, stimulus)
+    small = linearise(system, x0, leak, stimulus, discrete)
     refs = list(records) if records else (list(circuit.frequency_records) or default_signals(circuit))
     columns, pairs = _right_hand_sides(small, refs)
     if not stimulus and any(_needs_stimulus(r) for r in refs):
