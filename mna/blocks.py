@@ -315,6 +315,8 @@ def _parameter_value(el, block: BlockDefinition, item: nl.ParameterStatement, gi
     """A parameter's value in one instance: override, else the use's value, else the default."""
     dim = block.parameters[item.name].dimension
     override = el.circuit.block_overrides.get(scope.prefix + item.name)
+    if isinstance(override, float):  # an SI number given from Python
+        override = Quantity(override, dim)
     if override is not None:
         if override.dim != dim:
             raise UnitsError(f"the override of {scope.prefix + item.name} needs {describe(dim)}, "
@@ -331,6 +333,8 @@ def _parameter_value(el, block: BlockDefinition, item: nl.ParameterStatement, gi
 
 def _python_parameter(el, param: BlockParameter, given: dict[str, Any], scope: Scope) -> Quantity:
     override = el.circuit.block_overrides.get(scope.prefix + param.name)
+    if isinstance(override, float):  # an SI number given from Python
+        override = Quantity(override, param.dimension)
     if override is not None:
         if override.dim != param.dimension:
             raise UnitsError(f"the override of {scope.prefix + param.name} needs {describe(param.dimension)}, "

@@ -23,6 +23,7 @@ checks its dimension, and validates the ``simulate``, ``record``,
 
 from __future__ import annotations
 
+import copy
 import difflib
 import gc
 import math
@@ -31,7 +32,7 @@ from contextlib import contextmanager
 from dataclasses import dataclass, field
 from numbers import Real
 from pathlib import Path
-from typing import Any, Iterable, Sequence
+from typing import Any, Iterable, Mapping, Sequence
 
 from . import netlist as nl
 from .elements.base import ELEMENT, ELECTRICAL, REFERENCE, SHAFT, THERMAL, Arg, Element
@@ -214,7 +215,7 @@ class Elaborator:
 
             expand(self, block, st)
             return
-        self.circuit.add_element(self.element(st), st.name_span)
+        self.circuit._add_element(self.element(st), st.name_span)
 
     # -- values ---------------------------------------------------------------
     def _value(self, expr: nl.Expr) -> Quantity:
@@ -562,6 +563,12 @@ class Circuit:
         #: Values that replace block parameters when instances are expanded (``S1.resistance``).
         self.block_overrides: dict[str, Quantity] = {}
         self._elaborator = Elaborator(self)
+        #: The parsed netlist this circuit was elaborated from (None if built in Python).
+        self.netlist: nl.Netlist | None = None
+        #: The ``let`` values given in place of the netlist's (name -> Quantity).
+        self.overrides: dict[str, Quantity] = {}
+        # What was added from Python after elaboration, replayed by with_parameters.
+        self._python_steps: list[tuple[str, tuple, dict]] = []
 
     def __repr__(self) -> str:
         return f"<Circuit {self.name}: {len(self.elements)} elements, {len(self.nodes) - len(REFERENCE)} nodes>"
@@ -569,6 +576,11 @@ class Circuit:
     # -- building -------------------------------------------------------------
     def add_element(self, element: Element, span: Span | None = None) -> Element:
         """Add an already built element, checking its name and node domains."""
+        self._add_element(element, span)
+        self._python_steps.append(("add_element", (element, span), {}))
+        return element
+
+    def _add_element(self, element: Element, span: Span | None = None) -> Element:
         if element.name in self.elements:
             first = self.elements[element.name].span
             where = f" (first defined at {first.where()})" if first else ""
@@ -609,11 +621,13 @@ class Circuit:
         for a use of a block (see :meth:`define`), whose elements are
         named ``NAME.x``.
         """
+        call = ("add", (kind, name, *terminals), {"value": value, **arguments})  # for with_parameters
         block = self.blocks.get(kind)
         if block is not None:
             from .blocks import python_statement
 
             self._elaborator.place(python_statement(block, name, terminals, value, arguments, self.params))
+            self._python_steps.append(call)
             return None
         cls = lookup(kind)
         if cls is None:
@@ -656,7 +670,9 @@ class Circuit:
                 raise InputError(f"{kind} {name} needs {arg.name}")
             else:
                 params[arg.name] = arg.default
-        return self.add_element(cls(name, nodes, params))
+        element = self._add_element(cls(name, nodes, params))
+        self._python_steps.append(call)
+        return element
 
     def define(self, block) -> None:
         """Make a block (an :class:`mna.Block`) usable in :meth:`add` under its keyword."""
@@ -664,13 +680,45 @@ class Circuit:
 
         definition = block.definition() if hasattr(block, "definition") else block
         _add(self.blocks, definition)
+        self._python_steps.append(("define", (block,), {}))
 
-    def set_parameter(self, name: str, value: Quantity | float | str) -> None:
-        if isinstance(value, str):
-            value = parse_quantity(value)
-        elif not isinstance(value, Quantity):
-            value = Quantity(float(value))
-        self.params[name] = value
+    def with_parameters(self, values: Mapping[str, Any] | None = None, /, **more: Any) -> "Circuit":
+        """A new circuit in which the given ``let`` parameters have new values.
+
+        ``values`` maps a parameter name to its value; keyword arguments add
+        more (``c.with_parameters(Rload="5 ohm")``, or
+        ``c.with_parameters({"Rload": 5.0})``; the mapping form also takes
+        names that are not Python identifiers, such as a block instance's
+        parameter ``"S1.resistance"``). A value is quantity text
+        (``"5 ohm"``, ``"40 %"``), a :class:`~mna.units.Quantity`, or a
+        float in SI units; it must have the dimension of the value the
+        netlist gives (a wrong unit is a :class:`~mna.errors.UnitsError`,
+        an unknown name an :class:`~mna.errors.UnknownNameError` with the
+        closest name).
+
+        The circuit is elaborated again from its parsed netlist with the new
+        values, so everything that depends on them changes with them:
+        element values, waveforms, gate schedules, other ``let`` values
+        computed from them, ``simulate`` settings, measurements and checks.
+        Elements, records and ``let`` values added from Python are added
+        again in the same order. This circuit is not changed.
+        """
+        given = dict(values or {})
+        given.update(more)
+        if self.netlist is None:
+            if given:
+                _unknown_parameter(next(iter(given)), self.params)
+            fresh = Circuit(self.name, self.title)
+        else:
+            merged = {**self.overrides, **{k: v for k, v in given.items() if "." not in k}}
+            blocks = {**self.block_overrides,
+                      **{k: _block_override(k, v, self.block_parameters) for k, v in given.items() if "." in k}}
+            fresh = elaborate(self.netlist, merged, blocks)
+        for kind, args, kwargs in self._python_steps:
+            if kind == "add_element":  # its own copy: compilation stamps an element
+                args = (copy.copy(args[0]), *args[1:])
+            getattr(fresh, kind)(*args, **kwargs)
+        return fresh
 
     def record(self, *signals: str) -> None:
         """Choose what results keep, as in a ``record`` line: ``c.record("v(x)", "i(L1)")``."""
@@ -680,6 +728,7 @@ class Circuit:
             st = parse_netlist(f"record {text}").statements[0]
             for q in st.quantities:
                 self._add_record(self.signal_ref(q))
+        self._python_steps.append(("record", signals, {}))
 
     def _add_record(self, ref: SignalRef) -> None:
         """Keep a recorded quantity: every one for ``simulate frequency``, and those
@@ -935,16 +984,24 @@ def _python_value(arg: Arg, value: Any, what: str, params: dict[str, Quantity] |
 # Netlist -> Circuit.
 
 
-def elaborate(netlist: nl.Netlist, block_overrides: dict[str, Quantity] | None = None) -> Circuit:
+def elaborate(netlist: nl.Netlist, parameters: Mapping[str, Any] | None = None,
+              block_overrides: Mapping[str, Any] | None = None) -> Circuit:
     """Build a :class:`Circuit` from parsed statements (checks names and units).
 
-    ``block_overrides`` replaces block parameters by hierarchical name
-    (``{"S1.resistance": Quantity(22.0, OHM)}``), whatever the use gives.
+    ``parameters`` gives ``let`` values in place of the netlist's (see
+    :meth:`Circuit.with_parameters`); a dotted name in it (``S1.resistance``)
+    is a block parameter and joins ``block_overrides``, which replaces block
+    parameters by hierarchical name (``{"S1.resistance": Quantity(22.0,
+    OHM)}``), whatever the use gives.
     """
     name = Path(netlist.file).stem if netlist.file else "circuit"
     circuit = Circuit(name)
     circuit.file = netlist.file
+    circuit.netlist = netlist
+    pending = {k: v for k, v in (parameters or {}).items() if "." not in k}
     circuit.block_overrides = dict(block_overrides or {})
+    circuit.block_overrides.update({k: _block_override(k, v, {}) for k, v in (parameters or {}).items()
+                                    if "." in k})
     el = circuit._elaborator
     pending_records: list[nl.RecordStatement] = []
     seen_circuit: nl.CircuitStatement | None = None
@@ -965,8 +1022,16 @@ def elaborate(netlist: nl.Netlist, block_overrides: dict[str, Quantity] | None =
                 raise InputError(f"parameter {st.name!r} is already defined", st.span)
             if st.name == "pi":
                 raise InputError("'pi' is a built-in constant and cannot be redefined", st.span)
-            circuit.params[st.name] = evaluate(st.value, circuit.params)
-            circuit.definitions[st.name] = st.value
+            value = evaluate(st.value, circuit.params)
+            definition = st.value
+            if st.name in pending:
+                given = pending.pop(st.name)
+                value = _override(st, value, given)
+                circuit.overrides[st.name] = value
+                # (as written, so a speed given in hertz is still refused)
+                definition = nl.Number(value, given if isinstance(given, str) else repr(value), st.span)
+            circuit.params[st.name] = value
+            circuit.definitions[st.name] = definition
         elif isinstance(st, nl.CircuitStatement):
             if seen_circuit is not None:
                 raise InputError("a file describes one circuit: only one 'circuit' line", st.span)
@@ -982,6 +1047,8 @@ def elaborate(netlist: nl.Netlist, block_overrides: dict[str, Quantity] | None =
             circuit.measures.append(st)
         elif isinstance(st, nl.CheckStatement):
             circuit.checks.append(st)
+    if pending:
+        _unknown_parameter(next(iter(pending)), circuit.params)
     from .blocks import check_overrides
 
     check_overrides(circuit)
@@ -1012,14 +1079,18 @@ def _bulk_allocation():
             gc.enable()
 
 
-def parse(text: str, file: str | None = None) -> Circuit:
-    """Parse netlist text into a :class:`Circuit`."""
+def parse(text: str, file: str | None = None, parameters: Mapping[str, Any] | None = None) -> Circuit:
+    """Parse netlist text into a :class:`Circuit`.
+
+    ``parameters`` gives ``let`` values in place of those in the text, as
+    :meth:`Circuit.with_parameters` does (``{"Rload": "5 ohm"}``).
+    """
     with _bulk_allocation():
-        return elaborate(nl.parse_netlist(text, file))
+        return elaborate(nl.parse_netlist(text, file), parameters)
 
 
-def load(path: str | Path) -> Circuit:
-    """Read a netlist file into a :class:`Circuit`."""
+def load(path: str | Path, parameters: Mapping[str, Any] | None = None) -> Circuit:
+    """Read a netlist file into a :class:`Circuit` (``parameters`` as for :func:`parse`)."""
     path = Path(path)
     try:
         text = path.read_text(encoding="utf-8")
@@ -1029,4 +1100,54 @@ def load(path: str | Path) -> Circuit:
         raise InputError(f"{path}: is a folder, not a netlist file") from None
     except UnicodeDecodeError as exc:
         raise NetlistSyntaxError(f"{path}: not UTF-8 text ({exc.reason} at byte {exc.start})") from None
-    return parse(text, str(path))
+    return parse(text, str(path), parameters)
+
+
+def _override(st: nl.LetStatement, original: Quantity, value: Any) -> Quantity:
+    """A value given for ``let NAME`` in place of the netlist's, checked against its dimension."""
+    where = f" (line {st.span.line})" if st.span is not None and st.span.line else ""
+    what = f"parameter {st.name}{where}"
+    if isinstance(value, str):
+        try:
+            q = parse_quantity(value)
+        except UnitError as exc:
+            raise UnitsError(f"{what}: {exc}") from None
+        _check_dimension(q, original.dim, what, None, value)
+        return q
+    if isinstance(value, Quantity):
+        _check_dimension(value, original.dim, what, None)
+        return value
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        raise InputError(f"{what}: expected quantity text such as '5 ohm' or a number in SI units, "
+                         f"got {type(value).__name__}")
+    return Quantity(float(value), original.dim)
+
+
+def _block_override(name: str, value: Any, known: Mapping[str, Quantity]) -> Any:
+    """A value for a block parameter ``INSTANCE.NAME``: text becomes a Quantity
+    (its dimension is checked when the instance is expanded); a float stays SI,
+    in the parameter's dimension."""
+    if isinstance(value, str):
+        try:
+            return parse_quantity(value)
+        except UnitError as exc:
+            raise UnitsError(f"block parameter {name}: {exc}") from None
+    if isinstance(value, Quantity):
+        return value
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        raise InputError(f"block parameter {name}: expected quantity text such as '5 ohm' or a number in "
+                         f"SI units, got {type(value).__name__}")
+    if name in known:
+        return Quantity(float(value), known[name].dim)
+    return float(value)
+
+
+def _unknown_parameter(name: str, params: Mapping[str, Quantity]) -> None:
+    close = difflib.get_close_matches(name, list(params), n=1)
+    if close:
+        hint = f"did you mean {close[0]!r}?"
+    elif params:
+        hint = "the let parameters are " + ", ".join(sorted(params))
+    else:
+        hint = "the circuit has no let parameters"
+    raise UnknownNameError(f"no let parameter named {name!r}", hint=hint)
