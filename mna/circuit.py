@@ -817,15 +817,18 @@ class Circuit:
         until: float | str,
         step: float | str | None = None,
         method: str = "backward-euler",
-        start: str = "dc",
+        start: Any = "dc",
         record: Iterable[str] | None = None,
         **options: Any,
     ):
         """Transient analysis from 0 to ``until`` (s); returns :class:`~mna.results.Waveforms`.
 
         ``step`` (s) fixes the time step. ``start`` is ``"dc"`` (from the
-        operating point) or ``"rest"`` (every state zero except the
-        ``initial=`` values). Times may be floats in seconds or text
+        operating point), ``"rest"`` (every state zero except the
+        ``initial=`` values), or a :class:`~mna.runstate.CircuitState` such
+        as an earlier run's ``final_state``: the run then starts at the
+        state's time with its values and switch states and ends at
+        ``until`` (``state.at(0.0)`` restarts the clock). Times may be floats in seconds or text
         (``"4 ms"``). ``options`` are the other settings of ``simulate
         transient``, with ``_`` for ``-`` (``max_step=1e-6``,
         ``voltage_tolerance=1e-6``); the netlist spelling

@@ -63,6 +63,10 @@ class Waveforms:
     status: str = "ok"
     message: str = ""
     analysis: str = "transient"
+    #: The state at the end of the run (:class:`mna.runstate.CircuitState`: every
+    #: unknown, the switch states, the time), to continue from with
+    #: ``circuit.transient(until=..., start=res.final_state)``; None for a failed run.
+    final_state: Any = None
 
     def __getitem__(self, label: str) -> np.ndarray:
         if label == "time":

@@ -16,6 +16,7 @@ threads. What a run changes lives in run objects made fresh for each run:
 
 from __future__ import annotations
 
+from dataclasses import dataclass, replace
 from typing import TYPE_CHECKING
 
 import numpy as np
@@ -110,3 +111,51 @@ class DiscreteStates:
         if k is None or self.states[k] is None:
             return np.empty(0), np.empty(0)
         return self.batches[k].state_log(self.states[k], element)
+
+
+@dataclass(frozen=True, eq=False)
+class CircuitState:
+    """The complete state of a circuit at one instant, immutable.
+
+    Read from a run as :attr:`mna.results.Waveforms.final_state`; given back
+    as ``circuit.transient(until=..., start=state)`` a run continues from it.
+
+    - ``time`` (s): the instant;
+    - ``x``: every unknown of the compiled system (node potentials in V or
+      rad/s, branch currents in A, fluxes in Wb...), read-only, in the order
+      of ``unknowns``;
+    - ``unknowns``: the names of the unknowns (``v(out)``, ``i(L1)``), which
+      also tie the state to the circuit it came from;
+    - ``switches``: the discrete states of every batch (for switches a
+      :class:`~mna.elements.switches.SwitchSnapshot`: each switch's
+      open/closed, which a comparison gate keeps; schedule and PWM gates
+      take the state their time gives).
+    """
+
+    time: float
+    x: np.ndarray
+    unknowns: tuple[str, ...]
+    switches: tuple = ()
+
+    def __post_init__(self) -> None:
+        x = np.array(self.x, dtype=float)
+        x.flags.writeable = False
+        object.__setattr__(self, "x", x)
+        object.__setattr__(self, "time", float(self.time))
+        if x.shape != (len(self.unknowns),):
+            raise ValueError(f"a state of {len(self.unknowns)} unknowns got {x.size} values")
+
+    def __getitem__(self, name: str) -> float:
+        """One unknown by name: ``state["v(out)"]``, ``state["i(L1)"]``."""
+        try:
+            return float(self.x[self.unknowns.index(name)])
+        except ValueError:
+            raise KeyError(f"no unknown {name!r}; the unknowns are {', '.join(self.unknowns)}") from None
+
+    def at(self, time: float) -> "CircuitState":
+        """The same values, taken as the state at another ``time`` (s)."""
+        return replace(self, time=time)
+
+    def with_values(self, x: np.ndarray) -> "CircuitState":
+        """The same instant and switch states with other values of the unknowns."""
+        return replace(self, x=x)

@@ -114,7 +114,8 @@ def test_an_unknown_name_is_refused_with_the_closest_name():
     with pytest.raises(mna.InputError, match="no let parameter named 'Rr'") as info:
         mna.parse(RC_TEXT).with_parameters(Rr="2 ohm")
     assert "did you mean 'R'" in str(info.value)
-    with pytest.raises(mna.InputError, match="no let parameter named 'stage.R'"):
+    # A dotted name is a block instance's parameter.
+    with pytest.raises(mna.InputError, match="no block parameter 'stage.R'"):
         mna.parse(RC_TEXT).with_parameters({"stage.R": 5.0})
 
 
@@ -126,3 +127,19 @@ def test_elements_added_from_python_are_added_again():
     # Divider: 10 V * 1k / (3k + 1k) = 2.5 V.
     assert op["v(b)"] == pytest.approx(2.5, rel=1e-9)
     assert base.dc()["v(b)"] == pytest.approx(5.0, rel=1e-9)
+
+
+def test_a_block_parameter_by_its_hierarchical_name():
+    from tests.test_blocks import SNUBBER
+
+    text = SNUBBER + "voltage-source V1 in -> gnd 1 V\nrc-snubber S1 in -> gnd\nrc-snubber S2 in -> gnd\n"
+    base = mna.parse(text)
+    changed = base.with_parameters({"S2.resistance": "33 ohm"})
+    again = changed.with_parameters({"S1.resistance": 47.0})  # SI float: ohms
+    assert changed.elements["S2.R"].params["resistance"] == 33.0
+    assert changed.elements["S1.R"].params["resistance"] == base.elements["S1.R"].params["resistance"]
+    assert again.elements["S1.R"].params["resistance"] == 47.0
+    assert again.elements["S2.R"].params["resistance"] == 33.0
+    assert base.elements["S2.R"].params["resistance"] == 10.0
+    with pytest.raises(mna.InputError, match="S2.resistance needs ohms"):
+        base.with_parameters({"S2.resistance": "1 uF"})

@@ -6,6 +6,7 @@ Expected values from Ohm's law and the first-order RL step response
 
 from __future__ import annotations
 
+import textwrap
 import threading
 
 import numpy as np
@@ -95,3 +96,60 @@ def test_one_circuit_run_from_two_threads_at_once_gives_identical_answers():
     # 0.4 * 12 / 2 = 2.4 A less the diode drop share; at 2 ms (tau = 0.5 ms,
     # four time constants) it is within 10 % of that and far from 0.
     assert 1.8 < reference["i(L1)"][-1] < 2.6
+
+
+# -- the state at the end of a run, and a run that starts from it -----------------
+
+
+def test_a_run_continued_from_its_final_state_matches_one_long_run():
+    # Fixed steps: the continued run takes the same time points as the long
+    # one (up to the rounding of t0 + k*step against k*step), so the two
+    # agree to round-off, switch states and diode included.
+    circuit = mna.parse(PWM_RL)
+    whole = circuit.transient(until="2 ms", step="1 us")
+    first = circuit.transient(until="1 ms", step="1 us")
+    state = first.final_state
+    assert state.time == pytest.approx(1e-3, rel=1e-12)
+    assert state["i(L1)"] == pytest.approx(first["i(L1)"][-1], rel=1e-15)
+    with pytest.raises(ValueError):
+        state.x[0] = 1.0  # immutable
+    rest = circuit.transient(until="2 ms", step="1 us", start=state)
+    assert rest.time[0] == pytest.approx(1e-3, rel=1e-12) and rest.time[-1] == pytest.approx(2e-3, rel=1e-12)
+    k = np.searchsorted(whole.time, 1e-3 * (1 + 1e-9))
+    for label in ("i(L1)", "v(x)", "state(Q1)"):
+        assert np.allclose(rest[label][-200:], whole[label][-200:], rtol=1e-9, atol=1e-9)
+    assert whole.time.size - k + 2 >= rest.time.size - 2
+
+
+def test_a_comparison_gate_keeps_its_state_across_a_continued_run():
+    # A hysteresis gate holds its state inside the band: the continued run
+    # must start with the switch as the first run left it, not as a fresh
+    # operating point would set it (open).
+    text = """
+    voltage-source V1 s -> gnd 10 V
+    resistor R1 s -> c 1 kohm
+    capacitor C1 c -> gnd 1 uF
+    switch Q1 c -> gnd on=100 ohm gate=v(c) > 5 V hysteresis=4 V
+    record v(c), state(Q1)
+    """
+    circuit = mna.parse(textwrap.dedent(text))
+    whole = circuit.transient(until="4.4 ms", step="2 us", start="rest")
+    first = circuit.transient(until="2.2 ms", step="2 us", start="rest")
+    # At 2.2 ms the capacitor discharges through the closed switch, inside
+    # the 3..7 V band (RC relaxation with R1 || on= = 91 ohm).
+    assert first["state(Q1)"][-1] == 1.0 and 3.0 < first["v(c)"][-1] < 7.0
+    rest = circuit.transient(until="4.4 ms", step="2 us", start=first.final_state)
+    assert rest["state(Q1)"][0] == 1.0
+    assert np.allclose(rest["v(c)"][-100:], whole["v(c)"][-100:], rtol=1e-6, atol=1e-6)
+
+
+def test_a_state_of_another_circuit_or_an_end_before_it_is_refused():
+    circuit = mna.parse(PWM_RL)
+    state = circuit.transient(until="0.1 ms", step="1 us").final_state
+    with pytest.raises(mna.InputError, match="must be after the time of the starting state"):
+        circuit.transient(until="0.05 ms", start=state)
+    other = mna.parse(SCHEDULED)
+    with pytest.raises(mna.InputError, match="belongs to another circuit"):
+        other.transient(until="1 ms", start=state)
+    with pytest.raises(mna.InputError, match="start= must be dc, rest, or a state"):
+        circuit.transient(until="1 ms", start="warm")

@@ -19,6 +19,7 @@ from typing import Any
 
 from ..errors import InputError, Span
 from ..integrate import IntegrationMethod, get_method
+from ..runstate import CircuitState
 from ..limits import (DEFAULT_EDGE_LIMIT, DEFAULT_MEMORY_LIMIT_MB, DEFAULT_POINT_LIMIT, DEFAULT_STEP_LIMIT,
                       Limits)
 
@@ -67,8 +68,18 @@ class TransientSettings:
         method = settings.get("method") or "backward-euler"
         self.method: IntegrationMethod = get_method(method)
         self.start = settings.get("start") or "dc"
-        if self.start not in ("dc", "rest"):
-            raise InputError(f"start= must be dc or rest, got {self.start!r}")
+        #: A run continuing from an earlier run's end (start=CircuitState): its
+        #: time is the run's start time t0.
+        self.initial_state: CircuitState | None = None
+        self.t0 = 0.0
+        if isinstance(self.start, CircuitState):
+            self.initial_state, self.start, self.t0 = self.start, "state", self.start.time
+            if not self.until > self.t0:
+                raise InputError(f"until= ({self.until:g} s) must be after the time of the starting state "
+                                 f"({self.t0:g} s): until is the time at which the run ends")
+        elif self.start not in ("dc", "rest"):
+            raise InputError(f"start= must be dc, rest, or a state from an earlier run "
+                             f"(Waveforms.final_state), got {self.start!r}")
         self.tolerance = _number(settings, "tolerance", "") or DEFAULT_TOLERANCE
         if not self.tolerance < 1:
             raise InputError(f"tolerance= must lie between 0 and 100 %, got {self.tolerance:g}")

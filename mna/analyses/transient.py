@@ -46,7 +46,7 @@ from ..values import SignalRef
 from ..errors import InputError, SimulationError
 from ..integrate import IntegrationMethod, get_method
 from ..results import Waveforms
-from ..runstate import DiscreteStates
+from ..runstate import CircuitState, DiscreteStates
 from ..solver import Factorizer, SingularMatrix, newton, raise_singular
 from ..system import Probe, System
 from .. import limits
@@ -80,12 +80,12 @@ GROWTH_THRESHOLD = 1.5  # a step grows only if the error allows at least this fa
 LANDING_STRETCH = 1.1
 
 
-def time_grid(until: float, step: float, corners: np.ndarray) -> np.ndarray:
-    """Fixed-step time points (s): the regular grid with the corners inserted."""
-    count = int(np.ceil(until / step - 1e-9))
-    grid = np.arange(count + 1, dtype=float) * step
+def time_grid(until: float, step: float, corners: np.ndarray, start: float = 0.0) -> np.ndarray:
+    """Fixed-step time points (s) from ``start``: the regular grid with the corners inserted."""
+    count = int(np.ceil((until - start) / step - 1e-9))
+    grid = start + np.arange(count + 1, dtype=float) * step
     grid[-1] = until
-    corners = corners[(corners > 0) & (corners < until)]
+    corners = corners[(corners > start) & (corners < until)]
     if not corners.size:
         return grid
     tol = step * 1e-6
@@ -157,7 +157,12 @@ class _Run:
         self.stats = {"accepted": 0, "rejected": 0, "newton_iterations": 0, "events": 0,
                       "retries": 0}
         #: The switch states of this run (never kept on the system or its batches).
-        self.discrete = DiscreteStates(system, 0.0)
+        start = cfg.initial_state
+        if start is not None and tuple(start.unknowns) != tuple(system.names):
+            raise InputError("start=: the state belongs to another circuit (its unknowns are "
+                             f"{', '.join(start.unknowns[:6])}...; this circuit's are "
+                             f"{', '.join(system.names[:6])}...)")
+        self.discrete = DiscreteStates(system, cfg.t0, start.switches if start is not None else None)
         self.event_batches = self.discrete.any
         self.pwl = system.is_piecewise_linear
         self.version = self.discrete.key()
@@ -249,6 +254,8 @@ class _Run:
     def initial_point(self) -> np.ndarray:
         cfg, system = self.cfg, self.system
         first = cfg.step or cfg.until * 1e-6
+        if cfg.start == "state":
+            return np.array(cfg.initial_state.x)
         if cfg.start == "dc":
             leak = dc_leak(system, self.report)
             self.factorizer.forget()
@@ -324,37 +331,37 @@ class _Run:
 
     def execute(self) -> None:
         cfg, system, method = self.cfg, self.system, self.method
-        until = cfg.until
-        corners = system.corners(0.0, until)
-        corners = corners[(corners > 0) & (corners < until)]
+        until, t0 = cfg.until, cfg.t0
+        corners = system.corners(t0, until)
+        corners = corners[(corners > t0) & (corners < until)]
         fixed = cfg.step is not None
-        grid = time_grid(until, cfg.step, corners) if fixed else None
+        grid = time_grid(until, cfg.step, corners, t0) if fixed else None
         grid_corner = _corner_flags(grid, corners) if fixed else None
-        jumps = system.jumps(0.0, until)
-        jumps = jumps[(jumps > 0) & (jumps < until)]
+        jumps = system.jumps(t0, until)
+        jumps = jumps[(jumps > t0) & (jumps < until)]
         grid_k = 1
 
         x = self.initial_point()
-        q = self.charges(x, 0.0)
+        q = self.charges(x, t0)
         q_prev = q
         qdot = np.zeros(system.n)
         Cs = self.Cs_rec
         qs = Cs @ x if Cs is not None else np.empty(0)
         qs_prev = qs
         rates = np.zeros(qs.size)
-        self.record(0.0, x, rates)
+        self.record(t0, x, rates)
         # History of accepted (t, q-rows) since the last restart, for error estimates.
-        hist_t: list[float] = [0.0]
+        hist_t: list[float] = [t0]
         hist_q: list[np.ndarray] = [q[self.q_rows]]
         self.q_scale = np.abs(hist_q[0])
 
-        t = 0.0
+        t = t0
         h_prev: float | None = None
         order = method.order
         if fixed:
             h = cfg.step
         else:
-            gap = corners[0] if corners.size else until
+            gap = (corners[0] if corners.size else until) - t0
             h = min(cfg.max_step, gap, until) * 1e-3
         corner_i = 0
         progress = cfg.progress
@@ -384,8 +391,8 @@ class _Run:
             # (solved at 0+), or an operating point with no ideal edge at 0.
             if cfg.start == "rest":
                 rates0 = self.rates_after_jump(x, 0.0, self.start_h0, system.q_initial, q)
-            elif not system.jumps(-1.0, 0.0).size:
-                rates0 = system.rates(x, 0.0, self.discrete)
+            elif not _contains(system.jumps(t0 - 1.0 - abs(t0), t0), t0):
+                rates0 = system.rates(x, t0, self.discrete)
             if rates0 is not None:
                 qdot0 = rates0[self.q_rows]
                 if uses_qdot:
@@ -572,6 +579,7 @@ class _Run:
                         h = max(RESTART_FRACTION * min(h_try, gap, cfg.max_step), cfg.min_step)
             if t >= until * (1 - 1e-14):
                 break
+        self.end = (t, x)  # the values at the end, after any event there
 
     def local_error(self, hist_t, hist_q, t_new, q_new, h, h_prev, order, qdot0=None,
                     confluent: bool = False) -> float | None:
@@ -692,7 +700,12 @@ def _finish(circuit, system: System, refs, run: _Run, started, cfg: _Settings, s
         "wall_time_s": _time.perf_counter() - started,
     }
     statistics["steps"] = statistics["accepted_steps"]
+    end = getattr(run, "end", None)
+    final = None
+    if status == "ok" and end is not None:
+        final = CircuitState(end[0], end[1], tuple(system.names), run.discrete.snapshot())
     return Waveforms(
+        final_state=final,
         time=time,
         signals=signals,
         units={ref.label: unit_label(ref) for ref in refs},
@@ -710,7 +723,7 @@ def _resample(time: np.ndarray, signals: dict[str, np.ndarray], sample: float, o
     quadratic through the two neighbours and the nearest third point of the
     same smooth segment (never across a repeated time, i.e. an event).
     """
-    grid = np.arange(0.0, time[-1] + sample * 1e-9, sample)
+    grid = np.arange(time[0], time[-1] + sample * 1e-9, sample)
     out = {}
     # Index of the interval [time[i], time[i+1]] holding each sample (right-continuous).
     i = np.clip(np.searchsorted(time, grid, side="right") - 1, 0, time.size - 2)
