@@ -37,8 +37,8 @@ from . import netlist as nl
 from .elements.base import ELECTRICAL, REFERENCE, SHAFT, THERMAL, Arg, Port
 from .elements.registry import lookup
 from .errors import InputError, NetlistSyntaxError, Span, UnitsError, UnknownNameError
-from .expressions import evaluate
-from .units import Dimension, Quantity, describe
+from .expressions import evaluate, is_quantity_call
+from .units import ANGULAR_SPEED, Dimension, Quantity, describe
 
 if TYPE_CHECKING:  # pragma: no cover
     from .circuit import Elaborator
@@ -50,9 +50,6 @@ DEFERRED = object()
 #: a letter (so ``gain-2`` can never be read as ``gain - 2`` inside the body).
 PARAMETER_NAME = re.compile(r"[a-z][a-z0-9]*(-[a-z][a-z0-9]*)*")
 
-#: Quantities whose arguments are node or element names (renamed inside an instance).
-SIGNAL_FUNCTIONS = frozenset({"v", "i", "p", "w", "rpm", "angle", "torque", "emf", "pmech", "torque_out"})
-
 
 @dataclass(frozen=True)
 class BlockParameter:
@@ -62,6 +59,19 @@ class BlockParameter:
     default: Any  # nl.Expr, or a Quantity for blocks built in Python
     dimension: Dimension
     span: Span | None = None
+    text: str = ""  # the default as written
+
+    def arg(self) -> Arg:
+        """The parameter as an argument of the block's uses.
+
+        A speed (1/s) whose default is not written in hertz is an angular
+        speed: a use that writes it in hertz is refused, as for a machine's
+        speed, rather than read as rad/s.
+        """
+        from .circuit import _is_hertz
+
+        angular = self.dimension == ANGULAR_SPEED and not _is_hertz(self.text)
+        return Arg(self.name, self.dimension, default=DEFERRED, angular=angular)
 
 
 @dataclass
@@ -85,11 +95,11 @@ class BlockDefinition:
 
     @property
     def arguments(self) -> tuple[Arg, ...]:
-        return tuple(Arg(p.name, p.dimension, default=DEFERRED) for p in self.parameters.values())
+        return tuple(p.arg() for p in self.parameters.values())
 
     def arg(self, name: str) -> Arg | None:
         p = self.parameters.get(name)
-        return Arg(p.name, p.dimension, default=DEFERRED) if p else None
+        return p.arg() if p else None
 
     def where(self) -> str:
         return self.span.where() if self.span else "Python"
@@ -103,6 +113,11 @@ class Scope:
     terminals: dict[str, str]  # terminal -> node of the use
     params: dict[str, Quantity] = field(default_factory=dict)
     kinds: tuple[str, ...] = ()  # the blocks being expanded, outermost first
+    written: dict[str, Any] = field(default_factory=dict)  # parameter -> the expression that set it
+
+    def value(self, expr: Any) -> Any:
+        """A value written inside the instance, with its parameters replaced by their values."""
+        return _rewrite(expr, self.params, self)
 
     def node(self, name: str) -> str:
         if name in self.terminals:
@@ -132,7 +147,7 @@ def define(st: nl.BlockStatement) -> BlockDefinition:
         if isinstance(item, nl.ParameterStatement):
             _check_parameter_name(item, st.kind, params, scope, terminals)
             q = evaluate(_rewrite(item.value, scope, None), scope)
-            params[item.name] = BlockParameter(item.name, item.value, q.dim, item.span)
+            params[item.name] = BlockParameter(item.name, item.value, q.dim, item.span, _default_text(item))
             scope[item.name] = q
         elif isinstance(item, nl.LetStatement):
             _check_let_name(item, st.kind, scope)
@@ -145,6 +160,13 @@ def define(st: nl.BlockStatement) -> BlockDefinition:
                      "without indentation",
             )
     return BlockDefinition(st.kind, ports, params, st.body, st.span, st.file)
+
+
+def _default_text(item: nl.ParameterStatement) -> str:
+    """``parameter r = 10 kohm   # bleed`` -> ``10 kohm`` (for listings)."""
+    line = item.span.source_line or ""
+    text = line.split("=", 1)[1] if "=" in line else ""
+    return text.split("#", 1)[0].strip()
 
 
 def _ports(st: nl.BlockStatement) -> tuple[Port, ...]:
@@ -288,6 +310,7 @@ def expand(el: "Elaborator", block: BlockDefinition, st: nl.ElementStatement) ->
         where = f" (first defined at {first.where()})" if first else ""
         raise InputError(f"duplicate element name {instance!r}{where}", st.name_span)
     instances[instance] = st.name_span
+    scope.written = {a.key: a.value for a in st.arguments}
     el.scope = scope
     try:
         for param in block.parameters.values():
@@ -296,8 +319,11 @@ def expand(el: "Elaborator", block: BlockDefinition, st: nl.ElementStatement) ->
         for item in block.body:
             if isinstance(item, nl.ParameterStatement):
                 scope.params[item.name] = _parameter_value(el, block, item, given, scope)
+                scope.written.setdefault(item.name, item.value)
             elif isinstance(item, nl.LetStatement):
-                scope.params[item.name] = evaluate(_rewrite(item.value, scope.params, None), scope.params)
+                scope.params[item.name] = evaluate(_rewrite(item.value, scope.params, None, scope.written),
+                                                   scope.params)
+                scope.written[item.name] = item.value
             elif isinstance(item, nl.ElementStatement):
                 el.place(_rewrite_statement(item, scope))
             else:
@@ -380,16 +406,31 @@ def _rewrite_statement(st: nl.ElementStatement, scope: Scope) -> nl.ElementState
     return replace(st, operands=operands, arguments=arguments)
 
 
-def _rewrite(expr: Any, params: dict[str, Quantity], scope: Scope | None) -> Any:
-    """Replace parameter names in an expression by their values; rename signals."""
+def _rewrite(expr: Any, params: dict[str, Quantity], scope: Scope | None,
+             written: dict[str, Any] | None = None) -> Any:
+    """Replace parameter names in an expression by their values; rename signals.
+
+    ``written`` maps a parameter to the expression that set it, so that a
+    value written in hertz keeps saying so (an angular speed refuses it).
+    """
+    if written is None and scope is not None:
+        written = scope.written
     if isinstance(expr, (nl.Name, nl.Word)):
         name = expr.name if isinstance(expr, nl.Name) else expr.word
         if name in params:
-            return nl.Number(params[name], name, expr.span)
+            return nl.Number(params[name], _value_text(name, (written or {}).get(name)), expr.span)
         return expr
-    if isinstance(expr, nl.Call) and scope is not None and expr.func in SIGNAL_FUNCTIONS:
+    if scope is not None and is_quantity_call(expr):
         return replace(expr, args=tuple(_signal_name(a, scope) for a in expr.args))
-    return _map_children(expr, lambda e: _rewrite(e, params, scope))
+    return _map_children(expr, lambda e: _rewrite(e, params, scope, written))
+
+
+def _value_text(name: str, source: Any) -> str:
+    """How a parameter's value reads in messages: its name, and its hertz if written so."""
+    from .circuit import _hertz_literal  # (circuit imports this module only inside functions)
+
+    found = _hertz_literal(source, {}) if source is not None else None
+    return f"{name} = {found[0].text}" if found else name
 
 
 def _signal_name(arg: Any, scope: Scope) -> Any:
@@ -431,8 +472,7 @@ def describe_block(block: BlockDefinition) -> Iterable[str]:
         ports.append(text if port.domain == ELECTRICAL else f"{port.domain} {text}")
     yield f"{block.keyword} NAME {' '.join(ports)}    (block, {block.where()})"
     for p in block.parameters.values():
-        default = p.default if not isinstance(p.default, nl.Number) else p.default.value
-        text = getattr(p.default, "text", None) or str(default)
+        text = p.text or str(p.default)
         yield f"    {p.name}=  {describe(p.dimension)}; default {text}"
 
 

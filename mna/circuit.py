@@ -431,6 +431,8 @@ class Elaborator:
             if cls.main is None:
                 raise InputError(f"{st.kind} takes no value after its terminals; use name=value", op.span)
             value_expr = nl.Name(op.name, op.span) if isinstance(op, nl.Node) else op
+            if self.scope is not None:
+                value_expr = self.scope.value(value_expr)
             raw[cls.main] = (value_expr, op.span)
         keyword_ports = {p.names[0]: p for p in cls.ports if p.keyword}
         for a in st.arguments:

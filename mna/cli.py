@@ -4,6 +4,7 @@
     mna check FILE|DIR ... [--junit REPORT.xml] [--jobs N] [--quiet]
                                            CI mode: run every circuit file, summarise its checks
     mna kinds                              list the element kinds and their arguments
+    mna kinds FILE                         list the blocks a netlist file defines and brings
 
 Exit status: 0 all went well (every check passed), 1 a check failed,
 2 the input is wrong (syntax, units, names, topology), 3 the simulation
@@ -49,7 +50,8 @@ def _parser() -> argparse.ArgumentParser:
                        help="worker processes (default: one per CPU core; 1 runs in this process)")
     check.add_argument("--quiet", "-q", action="store_true",
                        help="no progress and no line per passing file")
-    sub.add_parser("kinds", help="list element kinds and their arguments")
+    kinds = sub.add_parser("kinds", help="list element kinds and their arguments (with FILE: the blocks it defines)")
+    kinds.add_argument("file", nargs="?", help="netlist file: list the blocks it defines and brings")
     return p
 
 
@@ -64,7 +66,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         if args.command == "check":
             return cmd_check(args)
         if args.command == "kinds":
-            return cmd_kinds()
+            return cmd_blocks(args.file) if args.file else cmd_kinds()
     except KeyboardInterrupt:
         print("interrupted", file=sys.stderr)
         return 130
@@ -278,6 +280,26 @@ def cmd_kinds() -> int:
             default = ("required" if arg.required else "optional" if arg.default is None
                        else f"default {arg.default!r}")
             print(f"    {arg.name}=  {unit}; {default}")
+    return EXIT_OK
+
+
+def cmd_blocks(file: str) -> int:
+    """List the blocks a netlist file defines and brings, with their parameters."""
+    from .blocks import describe_block, gather_definitions
+    from .errors import InputError
+    from .netlist import parse_file
+
+    try:
+        blocks = gather_definitions(parse_file(file))
+    except (InputError, OSError) as exc:
+        if isinstance(exc, OSError):
+            exc = InputError(f"{file}: {exc.strerror or exc}")
+        return _error_exit(exc)
+    if not blocks:
+        print(f"{file} defines no blocks (run 'mna kinds' for the built-in element kinds)")
+    for block in blocks.values():
+        for line in describe_block(block):
+            print(line)
     return EXIT_OK
 
 

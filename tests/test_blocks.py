@@ -445,3 +445,28 @@ def test_python_blocks_nest_and_take_si_numbers():
     assert c.dc()["v(top)"] == pytest.approx(15.0, rel=1e-9)
     with pytest.raises(UnitsError, match="needs ohms"):
         c.add("unit", "Z", "top", "gnd", r="1 F")
+
+
+def test_a_speed_in_hertz_is_refused_through_a_block_parameter():
+    # rpm default: the parameter is an angular speed; 50 Hz at the use is ambiguous.
+    rpm_block = "block spinner shaft s\n    parameter speed = 100 rpm\n    speed-source W s speed\n"
+    with pytest.raises(UnitsError, match="angular speed") as err:
+        mna.parse(rpm_block + "spinner S1 x speed=50 Hz\n")
+    assert err.value.line == 4 and not err.value.chain
+    # A default written in hertz reaches the speed source inside: refused there.
+    hz_block = "block spinner shaft s\n    parameter speed = 100 Hz\n    speed-source W s speed\n"
+    with pytest.raises(UnitsError, match="got speed = 100 Hz") as err:
+        mna.parse(hz_block + "spinner S1 x\n")
+    assert err.value.line == 3 and err.value.chain[0][1].line == 4
+
+
+def test_mna_kinds_lists_the_blocks_of_a_file(capsys):
+    from pathlib import Path
+
+    from mna.cli import main
+
+    family = Path(__file__).resolve().parent.parent / "circuits" / "valve_driver_family.mna"
+    assert main(["kinds", str(family)]) == 0
+    out = capsys.readouterr().out
+    assert "zener-clamp NAME a -> k" in out and "valve-channel NAME bus" in out
+    assert "    clamp-voltage=  volts (V); default 24 V" in out
