@@ -49,6 +49,7 @@ from . import waveform_math as wm
 from .errors import InputError, MeasurementError, SimulationError, UnitsError, UnknownNameError
 from .expressions import CONSTANTS, FUNCTIONS, Samples, children, evaluate, is_quantity_call, walk
 from .units import DIMENSIONLESS, JOULE, SECOND, Dimension, Quantity, describe, format_si, unit_symbol
+from .measure_frequency import FREQUENCY_MEASUREMENTS, NoFrequencyValue, frequency_call
 from .values import RPM, SignalRef, stored_per_si
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -194,13 +195,20 @@ def recording(circuit: "Circuit") -> list["SignalRef"]:
 
     refs = {r.label: r for r in (circuit.records or default_signals(circuit))}
     for ref in signals_used(circuit):
-        refs.setdefault(ref.label, ref)
+        if not ref.small_signal_only:  # z(a -> b) and ratios: for simulate frequency only
+            refs.setdefault(ref.label, ref)
     return list(refs.values())
 
 
-def frequency_recording(circuit: "Circuit") -> list["SignalRef"] | None:
-    """What a frequency analysis keeps: the file's records (None: the default set)."""
-    return list(circuit.frequency_records) or None
+def frequency_recording(circuit: "Circuit") -> list["SignalRef"]:
+    """What a frequency analysis keeps: the file's records (or the default set)
+    plus the quantities the measurements read."""
+    from .analyses.common import default_signals
+
+    refs = {r.label: r for r in (circuit.frequency_records or default_signals(circuit))}
+    for ref in signals_used(circuit):
+        refs.setdefault(ref.label, ref)
+    return list(refs.values())
 
 
 # --------------------------------------------------------------------------
@@ -228,21 +236,38 @@ class _Calls:
         self.has_dc = any(a.analysis == "dc" for a in circuit.analyses)
         self.until = float(transients[-1].settings["until"]) if transients else None
         self.hints: dict[int, str] = {}  # id(call) -> display unit ("rpm", "%"...)
+        self.response = None  # the last frequency analysis's FrequencyResponse
 
     # -- the hook -------------------------------------------------------------
     def __call__(self, call: nl.Call, sub: Callable[[nl.Expr], Quantity]) -> Quantity | None:
+        if call.func in FREQUENCY_MEASUREMENTS:
+            return self._frequency_measurement(call, sub)
         if _is_measurement(call):
             return self._measurement(call, sub)
         if call.func in FUNCTIONS:
             return None
         if _is_signal(call):
             return self._plain_signal(call)
-        close = difflib.get_close_matches(call.func, [*MEASUREMENTS, *FUNCTIONS], n=1)
+        close = difflib.get_close_matches(call.func, [*MEASUREMENTS, *FREQUENCY_MEASUREMENTS, *FUNCTIONS], n=1)
         raise UnknownNameError(
             f"unknown function {call.func}()", call.span,
             hint=f"did you mean {close[0]}()?" if close else
-            "measurements: " + " ".join(MEASUREMENTS) + "; functions: " + " ".join(FUNCTIONS),
+            "measurements: " + " ".join(MEASUREMENTS) + "; of a frequency response: "
+            + " ".join(FREQUENCY_MEASUREMENTS) + "; functions: " + " ".join(FUNCTIONS),
         )
+
+    def _frequency_measurement(self, call: nl.Call, sub: Callable[[nl.Expr], Quantity]) -> Quantity:
+        """resonance(), largest(), phase_margin()... on the last frequency response
+        (:mod:`mna.measure_frequency`)."""
+        try:
+            q, hint = frequency_call(self.circuit, call, sub, self.response, self.dry)
+        except NoFrequencyValue as exc:
+            raise _NoValue(f"{call.func}(): {exc}") from None
+        except MeasurementError as exc:
+            raise MeasurementError(exc.message if exc.span else f"{call.func}(): {exc.message}",
+                                   exc.span or call.span, hint=exc.hint) from None
+        self.hints[id(call)] = hint
+        return q
 
     # -- plain quantities (operating point) --------------------------------------
     def _plain_signal(self, call: nl.Call) -> Quantity:
@@ -720,6 +745,7 @@ def evaluate_checks(circuit: "Circuit", results: Sequence[Any]) -> CheckReport:
         raise SimulationError(f"the transient run failed ({waves.message}); checks need a whole run")
     scope: dict[str, Quantity] = dict(circuit.params)
     calls = _Calls(circuit, scope, waves, op)
+    calls.response = next((r for r in reversed(results) if getattr(r, "analysis", "") == "frequency"), None)
     hints: dict[str, str] = {}  # measurement name -> display unit
     missing: dict[str, str] = {}  # measurement name -> why it has no value
     report = CheckReport()
@@ -851,6 +877,10 @@ def _show(value: float, dim: Dimension, hint: str = "", *, signed: bool = False,
         return f"{sign}{value * 100:.{digits}g} %"
     if hint == "rad/s":
         return f"{sign}{value:.{digits}g} rad/s"
+    if hint == "deg" and dim == DIMENSIONLESS:
+        return f"{sign}{math.degrees(value):.{digits}g} deg"
+    if hint == "dB" and dim == DIMENSIONLESS:
+        return f"{sign}{value:.{digits}g} dB"
     symbol = hint or unit_symbol(dim)
     if symbol in ("", "1/s"):
         return f"{sign}{value:.{digits}g}" + (f" {symbol}" if symbol else "")

@@ -305,10 +305,10 @@ def test_machine_with_brush_drop_far_past_its_band():
 def test_diode_small_signal_resistance(bias, ideality):
     text = f"""
     current-source Ib gnd -> a {bias} A stimulus=1 uA
-    diode D1 a -> gnd saturation-current=1e-14 A ideality={ideality}
+    diode D1 a -> gnd saturation-current=1e-14 A ideality={ideality} temperature=300.15 K
     """
     res = parse(text).frequency(at=[1e3], record=["z(a -> gnd)", "v(a)", "i(D1)"])
-    vt = 1.380649e-23 * 300.15 / 1.602176634e-19  # CODATA k and q, 27 deg C
+    vt = 1.380649e-23 * 300.15 / 1.602176634e-19  # CODATA k and q at the temperature= given, 27 deg C
     g = (bias + 1e-14) / (ideality * vt) + 1e-12
     assert res["z(a -> gnd)"][0].real == pytest.approx(1 / g, rel=1e-9)
     assert abs(res["z(a -> gnd)"][0].imag) < 1e-12
@@ -320,7 +320,7 @@ def test_diode_small_signal_resistance(bias, ideality):
 def test_diode_with_series_resistance_and_capacitance():
     text = """
     current-source Ib gnd -> a 5 mA stimulus=1 mA
-    diode D1 a -> gnd resistance=2 ohm capacitance=1 nF
+    diode D1 a -> gnd resistance=2 ohm capacitance=1 nF temperature=300.15 K
     """
     res = sweep(text, "1 kHz", "100 MHz", record=["z(a -> gnd)", "i(D1)"])
     vt = 1.380649e-23 * 300.15 / 1.602176634e-19
