@@ -359,6 +359,8 @@ def _parameter_value(el, block: BlockDefinition, item: nl.ParameterStatement, gi
 
 def _python_parameter(el, param: BlockParameter, given: dict[str, Any], scope: Scope) -> Quantity:
     override = el.circuit.block_overrides.get(scope.prefix + param.name)
+    if isinstance(override, (int, float)):  # an SI number given from Python
+        override = Quantity(float(override), param.dimension)
     if isinstance(override, float):  # an SI number given from Python
         override = Quantity(override, param.dimension)
     if override is not None:
@@ -580,7 +582,7 @@ class PythonElement:
         if value is None and terminals and cls is not None and len(terminals) > _terminal_count(cls):
             value = self._value(cls.arg(cls.main) if cls.main else None, self.terminals[-1], scope)
             terminals = terminals[:-1]
-        el.circuit.add(self.kind, scope.prefix + self.name, *terminals, value=value, **arguments)
+        el.circuit._add(self.kind, scope.prefix + self.name, *terminals, value=value, **arguments)
 
     @staticmethod
     def _value(arg: Arg | None, value: Any, scope: Scope) -> Any:

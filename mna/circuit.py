@@ -623,13 +623,18 @@ class Circuit:
         for a use of a block (see :meth:`define`), whose elements are
         named ``NAME.x``.
         """
-        call = ("add", (kind, name, *terminals), {"value": value, **arguments})  # for with_parameters
+        result = self._add(kind, name, *terminals, value=value, **arguments)
+        self._python_steps.append(("add", (kind, name, *terminals), {"value": value, **arguments}))
+        return result
+
+    def _add(self, kind: str, name: str, *terminals: str | Sequence[str], value: Any = None,
+             **arguments: Any) -> Element | None:
+        """:meth:`add`, without keeping the call for :meth:`with_parameters` (blocks use it)."""
         block = self.blocks.get(kind)
         if block is not None:
             from .blocks import python_statement
 
             self._elaborator.place(python_statement(block, name, terminals, value, arguments, self.params))
-            self._python_steps.append(call)
             return None
         cls = lookup(kind)
         if cls is None:
@@ -672,9 +677,7 @@ class Circuit:
                 raise InputError(f"{kind} {name} needs {arg.name}")
             else:
                 params[arg.name] = arg.default
-        element = self._add_element(cls(name, nodes, params))
-        self._python_steps.append(call)
-        return element
+        return self._add_element(cls(name, nodes, params))
 
     def define(self, block) -> None:
         """Make a block (an :class:`mna.Block`) usable in :meth:`add` under its keyword."""
@@ -708,9 +711,12 @@ class Circuit:
         given = dict(values or {})
         given.update(more)
         if self.netlist is None:
-            if given:
-                _unknown_parameter(next(iter(given)), self.params)
+            lets = [k for k in given if "." not in k]
+            if lets:
+                _unknown_parameter(lets[0], self.params)
             fresh = Circuit(self.name, self.title)
+            fresh.block_overrides = {**self.block_overrides,
+                                     **{k: _block_override(k, v, self.block_parameters) for k, v in given.items()}}
         else:
             merged = {**self.overrides, **{k: v for k, v in given.items() if "." not in k}}
             blocks = {**self.block_overrides,
@@ -720,6 +726,10 @@ class Circuit:
             if kind == "add_element":  # its own copy: compilation stamps an element
                 args = (copy.copy(args[0]), *args[1:])
             getattr(fresh, kind)(*args, **kwargs)
+        if self.netlist is None and fresh.block_overrides:
+            from .blocks import check_overrides
+
+            check_overrides(fresh)
         return fresh
 
     def record(self, *signals: str) -> None:

@@ -470,3 +470,31 @@ def test_mna_kinds_lists_the_blocks_of_a_file(capsys):
     out = capsys.readouterr().out
     assert "zener-clamp NAME a -> k" in out and "valve-channel NAME bus" in out
     assert "    clamp-voltage=  volts (V); default 24 V" in out
+
+
+def test_with_parameters_reaches_one_block_instance_by_its_hierarchical_name():
+    circuit = mna.parse(SNUBBER + "voltage-source V1 in -> gnd 1 V\nrc-snubber S1 in -> gnd\n"
+                        "rc-snubber S2 in -> gnd\n")
+    for value in ("33 ohm", 33.0):  # quantity text, or SI
+        changed = circuit.with_parameters({"S2.resistance": value})
+        assert changed.elements["S2.R"].params["resistance"] == 33.0
+        assert changed.elements["S1.R"].params["resistance"] == 10.0
+        # A default computed from the overridden parameter follows it.
+        assert changed.block_parameters["S2.ring-damping"].value == pytest.approx(33 * 47e-9 / 1e-6)
+    assert circuit.elements["S2.R"].params["resistance"] == 10.0  # the original is unchanged
+    with pytest.raises(UnitsError, match="S2.resistance needs ohms"):
+        circuit.with_parameters({"S2.resistance": "1 uF"})
+    with pytest.raises(UnknownNameError) as err:
+        circuit.with_parameters({"S2.resistanc": "1 ohm"})
+    assert err.value.hint == "did you mean 'S2.resistance'?"
+
+
+def test_with_parameters_reaches_a_block_built_in_python():
+    unit = mna.Block("unit", "a -> b", r="10 ohm").add("resistor", "R", "a", "b", "r")
+    c = mna.Circuit()
+    c.define(unit)
+    c.add("current-source", "I1", "gnd", "top", 1.0)
+    c.add("unit", "X", "top", "gnd")
+    assert c.with_parameters({"X.r": "25 ohm"}).dc()["v(top)"] == pytest.approx(25.0, rel=1e-9)  # Ohm's law
+    with pytest.raises(UnknownNameError, match="X.q"):
+        c.with_parameters({"X.q": 1.0})
