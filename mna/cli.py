@@ -1,6 +1,8 @@
 """The ``mna`` command.
 
     mna run FILE [--out DIR] [--no-plot] [--quiet]   run the file's analyses, write CSV, PNG, JSON
+            [--set NAME=VALUE ...]         one run with parameters (or varied values) set
+            [--jobs N] [--cluster ADDRESS] where a file's many runs go (sweep, spread lines)
     mna check FILE|DIR ... [--junit REPORT.xml] [--jobs N] [--quiet]
                                            CI mode: run every circuit file, summarise its checks
     mna kinds                              list the element kinds and their arguments
@@ -40,6 +42,14 @@ def _parser() -> argparse.ArgumentParser:
     run.add_argument("--no-plot", action="store_true", help="skip the PNG plot")
     run.add_argument("--quiet", "-q", action="store_true",
                      help="no progress, no tables: print only errors and failed checks")
+    run.add_argument("--set", action="append", default=[], metavar="NAME=VALUE",
+                     help="run once with a parameter (or a swept or spread value) set, unit-checked: "
+                     "--set Rs=22ohm --set 'C1=4.7 nF'; spreads stay at nominal and sweeps are not run")
+    run.add_argument("--jobs", "-j", type=int, metavar="N",
+                     help="worker processes for a file's many runs (default: one per CPU core)")
+    run.add_argument("--cluster", metavar="ADDRESS",
+                     help="send a file's many runs to a running dask.distributed scheduler "
+                     "(tcp://host:8786); needs pip install 'mna[cluster]'")
     check = sub.add_parser(
         "check", help="run every circuit file given (folders: every *.mna inside) and summarise the checks",
         description="Run circuit files in parallel and report their checks. Exit status: 0 every check "
@@ -100,7 +110,10 @@ def cmd_run(args) -> int:
     say = (lambda *a: None) if args.quiet else print
     progress = RunProgress(sys.stdout) if is_terminal(sys.stdout) and not args.quiet else None
     try:
-        circuit = load(path)
+        study_code = _study_or_settings(path, out_dir, args)
+        if isinstance(study_code, int):
+            return study_code
+        circuit = study_code if study_code is not None else load(path)
         if not circuit.analyses:
             raise InputError(f"{path}: no 'simulate' line: nothing to run",
                              hint="add 'simulate dc' or 'simulate transient until=10 ms'")
@@ -139,6 +152,31 @@ def cmd_run(args) -> int:
     if outcome.failure is not None:
         return _error_exit(outcome.failure)
     return outcome.exit_code
+
+
+def _study_or_settings(path: Path, out_dir: Path, args):
+    """A file with many runs: run them (returns the exit status). With ``--set``: the
+    circuit of that one run. Otherwise None (an ordinary run)."""
+    from .analyses.sweep import has_study
+    from .errors import InputError
+    from .netlist import parse_file
+    from .study_report import circuit_with_settings, parse_settings, run_command
+
+    settings = parse_settings(args.set)
+    if not path.is_file():
+        return None  # load() reports it
+    netlist = parse_file(path)
+    if settings:
+        return circuit_with_settings(netlist, settings)
+    if not has_study(netlist):
+        if args.cluster:
+            raise InputError(f"--cluster: {path} has no sweep, spread, monte-carlo or corners line; "
+                             "a single run goes nowhere else")
+        return None
+    if args.jobs is not None and args.jobs < 1:
+        raise InputError(f"--jobs needs at least 1 worker process, got {args.jobs}")
+    return run_command(netlist, out_dir, jobs=args.jobs, cluster=args.cluster, plots=not args.no_plot,
+                       quiet=args.quiet, stream=sys.stdout)
 
 
 def _write_results(circuit, results: list, out_dir: Path, args, say) -> dict[str, str]:

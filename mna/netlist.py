@@ -229,6 +229,74 @@ class ParameterStatement:
 
 
 @dataclass(slots=True)
+class SweepAxis:
+    """``NAME = v1, v2, ...`` inside a ``sweep`` line; a value may be a range call
+    (``linear(...)``, ``logarithmic(...)``)."""
+
+    name: str
+    values: tuple[Expr, ...]
+    span: Span  # of the name
+
+
+@dataclass(slots=True)
+class SweepStatement:
+    """``sweep A = ... [and B = ...]``: one axis of a grid; joined names step together."""
+
+    axes: tuple[SweepAxis, ...]
+    span: Span
+
+
+@dataclass(slots=True)
+class SpreadTarget:
+    """What a spread varies: a parameter or an element's main value (``name``), or
+    one argument of an element (``argument(name)``, as ``resistance(L1)``)."""
+
+    name: str
+    argument: str | None
+    span: Span
+
+    @property
+    def label(self) -> str:
+        return f"{self.argument}({self.name})" if self.argument else self.name
+
+
+@dataclass(slots=True)
+class SpreadStatement:
+    """``spread TARGET uniform|normal AMOUNT [clip=LIMIT]``."""
+
+    target: SpreadTarget
+    distribution: str
+    amount: Expr
+    arguments: tuple[Argument, ...]
+    span: Span
+    distribution_span: Span
+
+
+@dataclass(slots=True)
+class MonteCarloStatement:
+    """``monte-carlo runs=N seed=S``."""
+
+    arguments: tuple[Argument, ...]
+    span: Span
+
+
+@dataclass(slots=True)
+class CornersStatement:
+    """``corners [TARGET, ...]``: every spread (or those named) at both limits."""
+
+    targets: tuple[SpreadTarget, ...]
+    span: Span
+
+
+@dataclass(slots=True)
+class YieldStatement:
+    """``required-yield FRACTION``: the share of runs that must pass every check."""
+
+    value: Expr
+    span: Span
+
+
+@dataclass(slots=True)
 class BlockStatement:
     """``block KIND TERMINALS`` and the statements indented under it.
 
@@ -255,6 +323,11 @@ Statement = Union[
     BlockStatement,
     ParameterStatement,
     BlocksFromStatement,
+    SweepStatement,
+    SpreadStatement,
+    MonteCarloStatement,
+    CornersStatement,
+    YieldStatement,
     ElementStatement,
     LetStatement,
     CircuitStatement,
@@ -477,6 +550,44 @@ class _Builder(Transformer):
         left, op, right = children
         return CheckStatement(str(op), left, right, span_of(left), text=statement_text(self._text, "check"))
 
+    def sweep_axis(self, children):
+        name, *values = children
+        return SweepAxis(str(name), tuple(values), self.span(name))
+
+    def sweep_stmt(self, children):
+        return SweepStatement(tuple(children), children[0].span)
+
+    def target_value(self, children):
+        (name,) = children
+        return SpreadTarget(str(name), None, self.span(name))
+
+    def target_argument(self, children):
+        argument, name = children
+        return SpreadTarget(str(name), str(argument), self.span(argument, name))
+
+    def spread_stmt(self, children):
+        target, distribution, amount, *args = children
+        return SpreadStatement(target, str(distribution), amount, tuple(args), target.span,
+                               self.span(distribution))
+
+    def monte_carlo_stmt(self, children):
+        return MonteCarloStatement(tuple(children), self._statement_span())
+
+    def corners_stmt(self, children):
+        targets = tuple(c for c in children if c is not None)
+        return CornersStatement(targets, self._statement_span())
+
+    def yield_stmt(self, children):
+        (value,) = children
+        return YieldStatement(value, self._statement_span())
+
+    def _statement_span(self) -> Span:
+        """The span of the statement's first word (for statements that start with a keyword)."""
+        line = self._first
+        src = self._lines[line - 1] if 0 < line <= len(self._lines) else None
+        word = self._text.split(None, 1)[0] if self._text.strip() else ""
+        return Span(line, 1, 1 + len(word), self._file, src)
+
     def check_within(self, children):
         left, tolerance, target = children
         return CheckStatement("within", left, target, span_of(left), tolerance=tolerance,
@@ -545,7 +656,8 @@ _FAST = re.compile(
 )
 _FAST_ARG = re.compile(rf"([a-z][a-z0-9]*(?:-[a-z0-9]+)*)[ \t]*=[ \t]*({_Q})")
 _STATEMENT_WORDS = frozenset({"let", "circuit", "simulate", "record", "measure", "check",
-                              "block", "blocks", "parameter"})
+                              "block", "blocks", "parameter", "sweep", "spread", "monte-carlo", "corners",
+                              "required-yield"})
 
 
 def _fast_element(chunk: _Chunk, file: str | None, lines: list[str]) -> ElementStatement | None:

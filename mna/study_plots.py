@@ -1,0 +1,212 @@
+"""Pictures of a study: a histogram per measurement with its check limits, and for a
+two-parameter sweep a map of each measurement over the grid with the failing region.
+
+matplotlib is imported only here, when a picture is drawn. The look is the
+project's own (palette of :mod:`mna.report`): teal bars, amber limit lines
+with the passing side shaded pale green, failing cells of a map hatched
+in brick red.
+"""
+
+from __future__ import annotations
+
+import io
+import re
+from pathlib import Path
+
+import numpy as np
+
+from .report import PALETTE
+from .results import write_atomic
+from .units import format_si
+
+TEAL, AMBER, BRICK = PALETTE[0], PALETTE[1], PALETTE[2]
+PASS_SHADE = "#e3f1e0"
+
+
+def _pyplot():
+    import matplotlib
+
+    matplotlib.use("Agg", force=True)
+    import matplotlib.pyplot as plt
+
+    return plt
+
+
+def _save(fig, path: Path) -> Path:
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=110)
+    _pyplot().close(fig)
+    return write_atomic(path, buf.getvalue())
+
+
+def file_stem(name: str) -> str:
+    """A measurement or check as part of a file name: ``t_peak``, ``check-12``."""
+    return re.sub(r"[^A-Za-z0-9_.-]+", "_", name).strip("_") or "value"
+
+
+def _scale(values: np.ndarray, unit: str) -> tuple[float, str]:
+    """A factor and prefixed unit for an axis (``1e-3, "ms"``), from the values' magnitude."""
+    finite = np.abs(values[np.isfinite(values)])
+    if not unit or finite.size == 0 or finite.max() == 0:
+        return 1.0, unit
+    shown = format_si(float(finite.max()), unit)
+    number, _, prefixed = shown.partition(" ")
+    try:
+        factor = float(finite.max()) / float(number)
+    except ValueError:
+        return 1.0, unit
+    return (factor, prefixed) if prefixed else (1.0, unit)
+
+
+def histogram(path: str | Path, values: np.ndarray, name: str, unit: str, limits: list[tuple[str, list[float]]],
+              title: str, failed_runs: int = 0) -> Path:
+    """A histogram of one measurement over the runs, with each check's limit lines.
+
+    ``limits`` holds ``(check text, [limit, ...], operator)`` in SI; the
+    passing side of each check is shaded.
+    """
+    plt = _pyplot()
+    finite = values[np.isfinite(values)]
+    factor, shown_unit = _scale(np.concatenate([finite, *[np.asarray(v) for _, v, _ in limits]]) if limits
+                                else finite, unit)
+    fig, ax = plt.subplots(figsize=(7.5, 4.2))
+    bins = max(5, min(50, int(np.sqrt(max(finite.size, 1))) * 2))
+    if finite.size:
+        ax.hist(finite / factor, bins=bins, color=TEAL, edgecolor="white", linewidth=0.6, zorder=3)
+    marks = [x / factor for _, lines, _ in limits for x in lines]
+    if finite.size or marks:
+        lo, hi = ax.get_xlim() if finite.size else (min(marks), max(marks))
+        if marks:
+            lo, hi = min([lo] + marks), max([hi] + marks)
+        pad = 0.04 * (hi - lo) or 1.0
+        ax.set_xlim(lo - pad, hi + pad)  # every limit in view; the shading must not widen it
+    for text, lines, op in limits:
+        lo, hi = ax.get_xlim()
+        span = ((lo, lines[0] / factor) if op in ("<", "<=") else (lines[0] / factor, hi) if op in (">", ">=")
+                else (lines[0] / factor, lines[-1] / factor))
+        ax.axvspan(*span, color=PASS_SHADE, zorder=1, linewidth=0)
+    for text, lines, op in limits:
+        for j, x in enumerate(lines):
+            ax.axvline(x / factor, color=AMBER, linewidth=2.0, linestyle=(0, (6, 3)), zorder=4,
+                       label=f"limit: {text}" if j == 0 else None)
+    ax.set_xlabel(f"{name} [{shown_unit}]" if shown_unit else name)
+    ax.set_ylabel("runs")
+    note = f"{finite.size} runs with a value" + (f", {failed_runs} without" if failed_runs else "")
+    if finite.size:
+        note += (f"; mean {format_si(float(finite.mean()), unit)}, "
+                 f"std {format_si(float(finite.std(ddof=1)) if finite.size > 1 else 0.0, unit)}")
+    ax.set_title(f"{title}\n{note}", fontsize=9.5, loc="left")
+    ax.grid(True, axis="y", color="#d9d9d9", linewidth=0.6, zorder=0)
+    for side in ("top", "right"):
+        ax.spines[side].set_visible(False)
+    if limits:
+        ax.legend(loc="upper left", bbox_to_anchor=(1.0, 1.0), fontsize=8, frameon=False)
+    fig.tight_layout()
+    return _save(fig, Path(path))
+
+
+def grid_map(path: str | Path, x: np.ndarray, y: np.ndarray, z: np.ndarray, failing: np.ndarray,
+             broken: np.ndarray, labels: tuple[str, str, str], units: tuple[str, str, str],
+             scales: tuple[str, str], title: str) -> Path:
+    """A map of one measurement over a two-parameter sweep.
+
+    ``x`` and ``y`` are the axes' values (SI), ``z[i, j]`` the measurement at
+    ``(x[i], y[j])``, ``failing[i, j]`` where a check failed (hatched, with
+    its border drawn), ``broken[i, j]`` where the run itself failed (a cross).
+    """
+    plt = _pyplot()
+    fx, ux = _scale(x, units[0])
+    fy, uy = _scale(y, units[1])
+    fz, uz = _scale(z, units[2])
+    from matplotlib.patches import Rectangle
+    from matplotlib.ticker import FuncFormatter
+
+    fig, ax = plt.subplots(figsize=(7.5, 5.2))
+    ex, ey = _edges(x / fx, scales[0] == "log"), _edges(y / fy, scales[1] == "log")
+    mesh = ax.pcolormesh(ex, ey, np.ma.masked_invalid(z / fz).T, shading="flat", cmap="cividis")
+    bar = fig.colorbar(mesh, ax=ax)
+    bar.set_label(f"{labels[2]} [{uz}]" if uz else labels[2])
+    for i, j in zip(*np.nonzero(failing)):
+        ax.add_patch(Rectangle((ex[i], ey[j]), ex[i + 1] - ex[i], ey[j + 1] - ey[j], facecolor="none",
+                               edgecolor=BRICK, hatch="///", linewidth=1.5,
+                               label="a check fails" if (i, j) == tuple(np.argwhere(failing)[0]) else None))
+    X, Y = np.meshgrid(x / fx, y / fy, indexing="ij")
+    if broken.any():
+        ax.plot(X[broken], Y[broken], linestyle="none", marker="x", markersize=8, color="black",
+                label="run failed")
+    plain = FuncFormatter(lambda v, _: f"{v:g}")
+    if scales[0] == "log":
+        ax.set_xscale("log")
+        ax.xaxis.set_major_formatter(plain)
+        ax.xaxis.set_minor_formatter(plain)
+    if scales[1] == "log":
+        ax.set_yscale("log")
+        ax.yaxis.set_major_formatter(plain)
+        ax.yaxis.set_minor_formatter(plain)
+    ax.set_xlim(ex[0], ex[-1])
+    ax.set_ylim(ey[0], ey[-1])
+    ax.set_xlabel(f"{labels[0]} [{ux}]" if ux else labels[0])
+    ax.set_ylabel(f"{labels[1]} [{uy}]" if uy else labels[1])
+    ax.set_title(title, fontsize=9.5, loc="left")
+    if failing.any() or broken.any():
+        ax.legend(loc="upper left", bbox_to_anchor=(0.0, -0.12), ncol=2, fontsize=8, frameon=False)
+    fig.tight_layout()
+    return _save(fig, Path(path))
+
+
+def _edges(centres: np.ndarray, log: bool) -> np.ndarray:
+    """Cell edges around sweep values: midpoints (geometric on a log axis), the ends mirrored."""
+    c = np.log(centres) if log and np.all(centres > 0) else np.asarray(centres, dtype=float)
+    if c.size == 1:
+        half = abs(c[0]) * 0.1 or 0.5
+        e = np.array([c[0] - half, c[0] + half]) if not log else np.array([c[0] - 0.1, c[0] + 0.1])
+    else:
+        mid = (c[1:] + c[:-1]) / 2
+        e = np.concatenate([[2 * c[0] - mid[0]], mid, [2 * c[-1] - mid[-1]]])
+    return np.exp(e) if log and np.all(centres > 0) else e
+
+
+def study_pictures(out_dir: Path, table, study, title: str) -> dict[str, str]:
+    """Every picture of a study: histograms always, maps for a two-parameter sweep."""
+    outputs: dict[str, str] = {}
+    broken_runs = int(np.isin(table["status"], ["input", "simulation", "internal"]).sum())
+    by_measure: dict[str, list[tuple[str, list[float]]]] = {}
+    for check in table.checks:
+        if check.left_name is not None and check.text in table.limits:
+            by_measure.setdefault(check.left_name, []).append((check.text, table.limits[check.text], check.op))
+    for name in table.measures:
+        png = histogram(out_dir / f"histogram-{file_stem(name)}.png", table[name], name, table.units[name],
+                        by_measure.get(name, []), title, broken_runs)
+        outputs[f"histogram {name}"] = str(png)
+    for check in table.checks:
+        if check.left_name is None:
+            values = table[f"value: {check.text}"]
+            limits = [(check.text, table.limits[check.text], check.op)] if check.text in table.limits else []
+            png = histogram(out_dir / f"histogram-check-line{check.line}.png", values, check.text,
+                            table.units[f"value: {check.text}"], limits, title, broken_runs)
+            outputs[f"histogram check line {check.line}"] = str(png)
+    if study.mode == "sweep" and len(study.sweep_shape) == 2:
+        outputs.update(_maps(out_dir, table, study, title))
+    return outputs
+
+
+def _maps(out_dir: Path, table, study, title: str) -> dict[str, str]:
+    shape = study.sweep_shape
+    # The first name of each sweep line labels its axis (names joined by "and" move with it).
+    first_x = study.variable(study.sweep_labels[0][0])
+    first_y = study.variable(study.sweep_labels[1][0])
+    x = table[first_x.label].reshape(shape)[:, 0]
+    y = table[first_y.label].reshape(shape)[0, :]
+    status = table["status"].reshape(shape)
+    failing = status == "failed"
+    broken = np.isin(status, ["input", "simulation", "internal"])
+    names = list(table.measures) + [f"value: {c.text}" for c in table.checks if c.left_name is None]
+    out = {}
+    for name in names:
+        z = table[name].reshape(shape)
+        stem = file_stem(name.replace("value: ", "check "))
+        png = grid_map(out_dir / f"map-{stem}.png", x, y, z, failing, broken,
+                       (first_x.label, first_y.label, name.replace("value: ", "")),
+                       (first_x.unit, first_y.unit, table.units[name]), study.sweep_scales, title)
+        out[f"map {name}"] = str(png)
+    return out
