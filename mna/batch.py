@@ -113,6 +113,14 @@ def check_file(path: str | Path) -> FileResult:
         if not circuit.analyses:
             raise InputError(f"{path}: no 'simulate' line: nothing to run",
                              hint="add 'simulate dc' or 'simulate transient until=10 ms'")
+        result.warnings = list(circuit.warnings)
+        if _has_study(path):
+            from .netlist import parse_file
+            from .study_report import check_study
+
+            result.status, result.checks, result.measurements, result.message = check_study(parse_file(path))
+            result.seconds = time.perf_counter() - started
+            return result
         outcome = run_and_check(circuit)
         result.checks = outcome.report.checks
         result.measurements = outcome.report.measurements
@@ -131,6 +139,14 @@ def check_file(path: str | Path) -> FileResult:
                           f"{type(exc).__name__}: {exc}\n{traceback.format_exc(limit=8)}")
     result.seconds = time.perf_counter() - started
     return result
+
+
+def _has_study(path: str | Path) -> bool:
+    """Whether a file asks for many runs (its checks then hold over every run)."""
+    from .analyses.sweep import has_study
+    from .netlist import parse_file
+
+    return has_study(parse_file(path))
 
 
 def _simulation_message(exc: BaseException) -> str:

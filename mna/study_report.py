@@ -267,3 +267,58 @@ def study_exit_code(summary: Summary) -> int:
     if finished == 0 and summary.by_status.get("input", 0):
         return 2
     return 1
+
+
+# --------------------------------------------------------------------------
+# ``mna check`` on a file with many runs.
+
+
+def check_study(netlist, jobs: int | None = 1):
+    """Run a file's study for ``mna check``: ``(status, checks, measurements, message)``.
+
+    Each check line becomes one result: it passes when its yield (the share
+    of runs that pass it) reaches the file's ``required-yield`` (every run
+    by default); the value shown is that yield, the message the worst run
+    and the ``mna run --set`` line that repeats it. With more than one
+    check, a last result ``every check in the same run`` holds the file's
+    own yield, which decides the file's status.
+    """
+    from .analyses.sweep import build_study
+    from .measure import CheckResult, MeasureResult
+    from .runner import run_study
+    from .studies import finish
+
+    study = build_study(netlist)
+    result = finish(study, run_study(study, jobs=jobs))
+    table, summary = result.table, result.summary
+    need = summary.required_yield
+    limit = "every run" if need >= 1.0 else f">= {_percent(need)} of runs"
+    checks = []
+    for c in summary.checks:
+        ok = c.passed >= math.ceil(need * c.runs - 1e-9)
+        message = ""
+        if c.worst_run is not None and not ok:
+            unit = table.units.get(f"margin: {c.text}", "")
+            message = (f"worst: run {c.worst_run}, margin {_fmt(c.worst_margin, unit)}; again: "
+                       f"{set_options(c.worst_values, table.units, netlist.file)}")
+        checks.append(CheckResult(c.text, c.line, "yield", "pass" if ok else "fail", value=c.yield_,
+                                  limit=need, shown_value=f"{c.passed}/{c.runs} runs ({_percent(c.yield_)})",
+                                  shown_limit=limit, message=message))
+    if len(summary.checks) != 1:
+        checks.append(CheckResult("every check in the same run", 0, "yield",
+                                  "pass" if summary.accepted else "fail", value=summary.yield_, limit=need,
+                                  shown_value=f"{summary.passed}/{summary.runs} runs ({_percent(summary.yield_)})",
+                                  shown_limit=limit))
+    measurements = [MeasureResult(m.name, f"{m.name} over {m.count} runs", 0, "ok" if m.count else "none",
+                                  value=m.mean, unit=m.unit,
+                                  shown=f"mean {_fmt(m.mean, m.unit)}, std {_fmt(m.std, m.unit)}, "
+                                        f"{_fmt(m.minimum, m.unit)} to {_fmt(m.maximum, m.unit)}")
+                    for m in summary.measures]
+    message = ""
+    if summary.failures:
+        run, status, text, values = summary.failures[0]
+        first = text.strip().splitlines()[0] if text.strip() else ""
+        message = (f"{len(summary.failures)} of {summary.runs} runs did not finish; the first, run {run} "
+                   f"({_values_text(values, table.units)}): {RUN_STATUS[status]}: {first}")
+    status = "ok" if summary.accepted else "failed"
+    return status, checks, measurements, message
