@@ -583,8 +583,9 @@ def build_study(netlist: nl.Netlist) -> Study:
             dim = original[axis.name].dim
             vals, scale = axis_values(axis, original, dim)
             if columns and len(vals) != len(columns[0][1]):
-                raise InputError(f"sweep: {axis.name} has {len(vals)} values but {st.axes[0].name} has "
-                                 f"{len(columns[0][1])}; names joined by 'and' step together", axis.span)
+                raise InputError(f"sweep: {axis.name} has {_values(len(vals))} but {st.axes[0].name} has "
+                                 f"{_values(len(columns[0][1]))}; names joined by 'and' step together",
+                                 axis.span)
             columns.append((parameter, vals))
             label = f"nominal({axis.name})" if spread_too else axis.name
             variables.append(Variable(label, parameter, dim, "sweep"))
@@ -632,6 +633,10 @@ def build_study(netlist: nl.Netlist) -> Study:
             plans.append(RunPlan(len(plans), overrides, None if deviations is None else k))
     return Study(rewritten, variables, spreads, plans, mode, seed, required, tuple(shape), tuple(scales),
                  tuple(axis_labels), values)
+
+
+def _values(n: int) -> str:
+    return f"{n} value{'s' if n != 1 else ''}"
 
 
 def _split_nominal(netlist: nl.Netlist, name: str) -> nl.Netlist:
