@@ -107,51 +107,60 @@ def histogram(path: str | Path, values: np.ndarray, name: str, unit: str, limits
 
 def grid_map(path: str | Path, x: np.ndarray, y: np.ndarray, z: np.ndarray, failing: np.ndarray,
              broken: np.ndarray, labels: tuple[str, str, str], units: tuple[str, str, str],
-             scales: tuple[str, str], title: str) -> Path:
+             scales: tuple[str, str], title: str, others: np.ndarray | None = None) -> Path:
     """A map of one measurement over a two-parameter sweep.
 
     ``x`` and ``y`` are the axes' values (SI), ``z[i, j]`` the measurement at
-    ``(x[i], y[j])``, ``failing[i, j]`` where a check failed (hatched, with
-    its border drawn), ``broken[i, j]`` where the run itself failed (a cross).
+    ``(x[i], y[j])``, ``failing[i, j]`` where a check on this measurement
+    fails (hatched, outlined), ``others[i, j]`` where only another check
+    fails (a dot), ``broken[i, j]`` where the run itself failed (a cross).
     """
+    from matplotlib.patches import Rectangle
+
     plt = _pyplot()
     fx, ux = _scale(x, units[0])
     fy, uy = _scale(y, units[1])
     fz, uz = _scale(z, units[2])
-    from matplotlib.patches import Rectangle
-    from matplotlib.ticker import FuncFormatter
-
     fig, ax = plt.subplots(figsize=(7.5, 5.2))
     ex, ey = _edges(x / fx, scales[0] == "log"), _edges(y / fy, scales[1] == "log")
     mesh = ax.pcolormesh(ex, ey, np.ma.masked_invalid(z / fz).T, shading="flat", cmap="cividis")
     bar = fig.colorbar(mesh, ax=ax)
     bar.set_label(f"{labels[2]} [{uz}]" if uz else labels[2])
+    first = True
     for i, j in zip(*np.nonzero(failing)):
         ax.add_patch(Rectangle((ex[i], ey[j]), ex[i + 1] - ex[i], ey[j + 1] - ey[j], facecolor="none",
                                edgecolor=BRICK, hatch="///", linewidth=1.5,
-                               label="a check fails" if (i, j) == tuple(np.argwhere(failing)[0]) else None))
+                               label=f"fails a check on {labels[2]}" if first else None))
+        first = False
     X, Y = np.meshgrid(x / fx, y / fy, indexing="ij")
+    if others is not None and (others & ~failing & ~broken).any():
+        only = others & ~failing & ~broken
+        ax.plot(X[only], Y[only], linestyle="none", marker="o", markersize=6, color="white",
+                markeredgecolor=BRICK, label="fails another check")
     if broken.any():
         ax.plot(X[broken], Y[broken], linestyle="none", marker="x", markersize=8, color="black",
                 label="run failed")
-    plain = FuncFormatter(lambda v, _: f"{v:g}")
-    if scales[0] == "log":
-        ax.set_xscale("log")
-        ax.xaxis.set_major_formatter(plain)
-        ax.xaxis.set_minor_formatter(plain)
-    if scales[1] == "log":
-        ax.set_yscale("log")
-        ax.yaxis.set_major_formatter(plain)
-        ax.yaxis.set_minor_formatter(plain)
+    for axis, values, scale in ((ax.xaxis, x / fx, scales[0]), (ax.yaxis, y / fy, scales[1])):
+        if scale == "log":
+            (ax.set_xscale if axis is ax.xaxis else ax.set_yscale)("log")
+        axis.set_ticks(values if len(values) <= 12 else values[:: int(np.ceil(len(values) / 12))])
+        axis.set_ticklabels([f"{v:.3g}" for v in axis.get_ticklocs()])
+        axis.set_minor_locator(_NoTicks())
     ax.set_xlim(ex[0], ex[-1])
     ax.set_ylim(ey[0], ey[-1])
     ax.set_xlabel(f"{labels[0]} [{ux}]" if ux else labels[0])
     ax.set_ylabel(f"{labels[1]} [{uy}]" if uy else labels[1])
     ax.set_title(title, fontsize=9.5, loc="left")
-    if failing.any() or broken.any():
-        ax.legend(loc="upper left", bbox_to_anchor=(0.0, -0.12), ncol=2, fontsize=8, frameon=False)
+    if failing.any() or broken.any() or (others is not None and others.any()):
+        ax.legend(loc="upper left", bbox_to_anchor=(0.0, -0.12), ncol=3, fontsize=8, frameon=False)
     fig.tight_layout()
     return _save(fig, Path(path))
+
+
+def _NoTicks():
+    from matplotlib.ticker import NullLocator
+
+    return NullLocator()
 
 
 def _edges(centres: np.ndarray, log: bool) -> np.ndarray:
@@ -198,15 +207,23 @@ def _maps(out_dir: Path, table, study, title: str) -> dict[str, str]:
     x = table[first_x.label].reshape(shape)[:, 0]
     y = table[first_y.label].reshape(shape)[0, :]
     status = table["status"].reshape(shape)
-    failing = status == "failed"
     broken = np.isin(status, ["input", "simulation", "internal"])
+    any_failed = status == "failed"
     names = list(table.measures) + [f"value: {c.text}" for c in table.checks if c.left_name is None]
     out = {}
     for name in names:
         z = table[name].reshape(shape)
+        own = [c for c in table.checks if c.left_name == name or f"value: {c.text}" == name]
+        if own:
+            failing = np.zeros(shape, dtype=bool)
+            for c in own:
+                failing |= table[f"pass: {c.text}"].reshape(shape) == 0.0
+            others = any_failed & ~failing
+        else:
+            failing, others = any_failed, None
         stem = file_stem(name.replace("value: ", "check "))
         png = grid_map(out_dir / f"map-{stem}.png", x, y, z, failing, broken,
                        (first_x.label, first_y.label, name.replace("value: ", "")),
-                       (first_x.unit, first_y.unit, table.units[name]), study.sweep_scales, title)
+                       (first_x.unit, first_y.unit, table.units[name]), study.sweep_scales, title, others)
         out[f"map {name}"] = str(png)
     return out

@@ -121,7 +121,8 @@ def summary_lines(table: StudyTable, summary: Summary, file: str | None, *, colo
     if summary.checks:
         lines.append("checks:")
         for c in summary.checks:
-            word = status_word("pass" if c.passed == c.runs else "fail", colour)
+            enough = c.passed >= math.ceil(summary.required_yield * c.runs - 1e-9)
+            word = status_word("pass" if enough else "fail", colour)
             lines.append(f"  {word}  {c.text}   yield {c.passed}/{c.runs} ({_percent(c.yield_)})"
                          + (f", {c.not_evaluated} not evaluated" if c.not_evaluated else ""))
             if c.worst_run is not None:

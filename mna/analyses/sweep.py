@@ -460,7 +460,9 @@ def axis_values(axis: nl.SweepAxis, params: Mapping[str, Quantity], want: Dimens
                                  f"this value is in {describe(q.dim)}", expr.span)
             out.append(q.value)
     if len(axis.values) > 1:
-        scale = "linear"
+        # A list drawn on a log axis when it spans a decade or more of positive values (22, 47, 100...).
+        positive = all(v > 0 for v in out)
+        scale = "log" if positive and len(out) > 2 and max(out) >= 10 * min(out) else "linear"
     return out, scale
 
 
