@@ -41,6 +41,10 @@ _EXPORTS = {
     "SimulationError": "mna.errors",
     "TopologyError": "mna.errors",
     "OperatingPoint": "mna.results",
+    "sweep": "mna.studies",
+    "monte_carlo": "mna.studies",
+    "corners": "mna.studies",
+    "run_study": "mna.studies",
     "Waveforms": "mna.results",
 }
 
@@ -77,7 +81,11 @@ __all__ = [
     "TopologyError",
     "Unknown",
     "Waveforms",
+    "corners",
     "load",
+    "monte_carlo",
     "parse",
     "register",
+    "run_study",
+    "sweep",
 ]

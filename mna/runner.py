@@ -258,7 +258,7 @@ def _on_cluster(variant: Variant, plans: Sequence[RunPlan], cluster: Any, finish
 
     client, owned = cluster_client(cluster)
     try:
-        shared = client.scatter(variant, broadcast=True)
+        shared = client.scatter(variant, broadcast=True, hash=False)
         futures = {client.submit(run_one, shared, plan, pure=False): plan for plan in plans}
         pending = as_completed(futures, with_results=False)
         last = time.perf_counter()
