@@ -329,11 +329,20 @@ def expand(el: "Elaborator", block: BlockDefinition, st: nl.ElementStatement) ->
             else:
                 item.place(el, scope)  # a PythonElement
     except InputError as exc:
+        _explain_scope(exc, block)
         raise exc.inside(f"{st.kind} {instance}", st.kind_span) from None
     finally:
         el.scope = outer
     for name in block.parameters:
         el.circuit.block_parameters[scope.prefix + name] = scope.params[name]
+
+
+def _explain_scope(exc: InputError, block: BlockDefinition) -> None:
+    """An unknown parameter inside a body: say that a block sees only its own names."""
+    if isinstance(exc, UnknownNameError) and exc.message.startswith("unknown parameter") and not exc.chain:
+        exc.hint = (f"block {block.keyword} sees only its own parameters and lets; add a "
+                    f"'parameter' line to it and give the value where the block is used")
+        exc.args = (exc.render(),)
 
 
 def _parameter_value(el, block: BlockDefinition, item: nl.ParameterStatement, given: dict[str, Any],

@@ -5,8 +5,6 @@ so the reference for most checks is the same circuit written out by hand;
 the physics checks use closed forms named beside them.
 """
 
-import math
-
 import numpy as np
 import pytest
 
@@ -170,8 +168,6 @@ rc-snubber S3 in -> gnd capacitance=(2 * 47 nF)
 
 
 def test_an_override_by_hierarchical_name_reaches_one_instance():
-    from mna.blocks import gather_definitions
-    from mna.circuit import Circuit
     from mna.netlist import parse_netlist
     from mna.units import Quantity, parse_quantity
 
@@ -498,3 +494,10 @@ def test_with_parameters_reaches_a_block_built_in_python():
     assert c.with_parameters({"X.r": "25 ohm"}).dc()["v(top)"] == pytest.approx(25.0, rel=1e-9)  # Ohm's law
     with pytest.raises(UnknownNameError, match="X.q"):
         c.with_parameters({"X.q": 1.0})
+
+
+def test_a_body_does_not_see_the_lets_of_the_file():
+    text = "let Rload = 5 ohm\nblock load-r a -> b\n    resistor R a -> b Rload\nload-r X in -> gnd\n"
+    with pytest.raises(UnknownNameError, match="unknown parameter 'Rload'") as err:
+        mna.parse(text)
+    assert err.value.line == 3 and "sees only its own parameters" in err.value.hint
