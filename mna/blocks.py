@@ -43,6 +43,9 @@ from .units import ANGULAR_SPEED, Dimension, Quantity, describe
 if TYPE_CHECKING:  # pragma: no cover
     from .circuit import Elaborator
 
+#: How deep uses of blocks may nest (each level is a few Python frames).
+MAX_DEPTH = 40
+
 #: A block parameter's default: computed inside the instance, in order.
 DEFERRED = object()
 
@@ -299,6 +302,9 @@ def expand(el: "Elaborator", block: BlockDefinition, st: nl.ElementStatement) ->
     if block.keyword in kinds:
         loop = " -> ".join(kinds[kinds.index(block.keyword):] + (block.keyword,))
         raise InputError(f"block {block.keyword} uses itself ({loop})", st.kind_span)
+    if len(kinds) >= MAX_DEPTH:
+        raise InputError(f"blocks are nested more than {MAX_DEPTH} deep here", st.kind_span,
+                         hint="a block inside a block inside a block... stops at this depth")
     nodes, given, spans = el.bind(block, st)
     instance = el.element_name(st.name)
     _check_terminal_domains(el, block, st, nodes, spans)

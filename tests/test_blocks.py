@@ -501,3 +501,37 @@ def test_a_body_does_not_see_the_lets_of_the_file():
     with pytest.raises(UnknownNameError, match="unknown parameter 'Rload'") as err:
         mna.parse(text)
     assert err.value.line == 3 and "sees only its own parameters" in err.value.hint
+
+
+def test_a_block_with_a_thermal_terminal():
+    # A heatsink part: steady-state temperature rises are heat flow times
+    # thermal resistance (the thermal analogue of Ohm's law).
+    text = """\
+block heatsink thermal case
+    parameter pad  = 0.5 K/W
+    parameter sink = 2 K/W
+    thermal-resistance Rpad  case -> fins  pad
+    thermal-resistance Rsink fins -> ambient  sink
+    thermal-capacitance C   fins -> ambient 40 J/K
+heat-source P1 junction 10 W
+thermal-resistance Rjc junction -> case 1 K/W
+heatsink H1 case sink=3 K/W
+simulate dc
+"""
+    op = mna.parse(text).dc()
+    assert op["T(junction)"] - op["T(H1.fins)"] == pytest.approx(10 * 1.5, rel=1e-9)
+    assert op["T(case)"] - op["T(H1.fins)"] == pytest.approx(10 * 0.5, rel=1e-9)
+    with pytest.raises(InputError, match="terminal case is a thermal terminal"):
+        mna.parse(text.replace("heatsink H1 case", "resistor Rx e -> gnd 1 ohm\nheatsink H1 e"))
+
+
+def test_blocks_nested_past_the_depth_limit_are_an_input_error():
+    from mna.blocks import MAX_DEPTH
+
+    levels = ["block b0 a -> b\n    resistor R a -> b 1 ohm\n"]
+    levels += [f"block b{k} a -> b\n    b{k - 1} X a -> b\n" for k in range(1, MAX_DEPTH + 5)]
+    text = "".join(levels) + f"b{MAX_DEPTH + 4} Top x -> gnd\n"
+    with pytest.raises(InputError, match=f"nested more than {MAX_DEPTH} deep"):
+        mna.parse(text)
+    ok = "".join(levels[:MAX_DEPTH]) + f"b{MAX_DEPTH - 1} Top x -> gnd\n"
+    assert len(mna.parse(ok).elements) == 1
