@@ -71,30 +71,46 @@ class RunRecord:
         return self.status == "ok"
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class Variant:
-    """The part of a study every run needs: the rewritten netlist, the parameters'
-    units and the varied values' names. Sent to each worker once."""
+    """The part of a study every run needs: the rewritten netlist and the varied
+    values' names. Sent to each worker once; each worker elaborates the
+    nominal circuit once (:meth:`base`) and every run derives from it."""
 
     netlist: Any
-    base_values: Mapping[str, Any]
     variables: tuple[Variable, ...]
 
     @classmethod
     def of(cls, study: Study) -> "Variant":
-        return cls(study.netlist, dict(study.base_values), tuple(study.variables))
+        variant = cls(study.netlist, tuple(study.variables))
+        _BASES[id(variant)] = (variant, study.base)  # this process has it already
+        return variant
+
+    def base(self):
+        """The nominal circuit, elaborated once per process."""
+        found = _BASES.get(id(self))
+        if found is None or found[0] is not self:
+            from .circuit import elaborate
+
+            if len(_BASES) > 8:
+                _BASES.clear()
+            found = _BASES[id(self)] = (self, elaborate(self.netlist))
+        return found[1]
+
+
+_BASES: dict[int, tuple[Variant, Any]] = {}
 
 
 def run_one(variant: Variant, plan: RunPlan) -> RunRecord:
     """Elaborate, simulate and check one run; never raises (see :class:`RunRecord`)."""
-    from .analyses.sweep import build_circuit
+    from .analyses.sweep import circuit_for, value_of
     from .measure import run_and_check
 
     started = time.perf_counter()
     record = RunRecord(plan.index, "internal")
     try:
-        circuit = build_circuit(variant.netlist, plan.overrides, variant.base_values)
-        record.values = {v.label: circuit.params[v.parameter].value for v in variant.variables}
+        circuit = circuit_for(variant.base(), plan.overrides)
+        record.values = {v.label: value_of(circuit, v.parameter) for v in variant.variables}
         outcome = run_and_check(circuit)
         record.measures = [m.value if m.status == "ok" else None for m in outcome.report.measurements]
         record.checks = [(c.status, c.value, c.margin) for c in outcome.report.checks]

@@ -195,21 +195,27 @@ def parse_settings(items) -> dict[str, str]:
 
 def circuit_with_settings(netlist, settings: dict[str, str]):
     """The file's circuit with ``--set`` values: one run, every spread at nominal, no sweep."""
-    from .analyses.sweep import _parameter_values, build_circuit, build_study, checked_value, has_study
+    from .analyses.sweep import build_study, checked_value, has_study
+    from .circuit import elaborate
     from .errors import UnknownNameError
 
     if has_study(netlist):
         study = build_study(netlist)
         return study.circuit_for(study.settings_for(settings))
-    base = _parameter_values(netlist)
-    overrides = {}
+    circuit = elaborate(netlist)
+    known = {**circuit.params, **circuit.block_parameters}
+    values = {}
     for name, value in settings.items():
-        if name not in base:
+        if name not in known:
+            import difflib
+
+            close = difflib.get_close_matches(name, list(known), n=1)
             raise UnknownNameError(f"--set {name}: the file has no parameter named {name!r}",
-                                   hint=("parameters: " + ", ".join(base)) if base else
+                                   hint=f"did you mean {close[0]!r}?" if close else
+                                   ("parameters: " + ", ".join(known)) if known else
                                    "add 'let NAME = VALUE' to the file and use the name")
-        overrides[name] = checked_value(value, base[name].dim, f"--set {name}")
-    return build_circuit(netlist, overrides, base)
+        values[name] = checked_value(value, known[name].dim, f"--set {name}")
+    return circuit.with_parameters(values)
 
 
 def run_command(netlist, out_dir: Path, *, jobs: int | None, cluster: str | None, plots: bool, quiet: bool,

@@ -174,3 +174,35 @@ def test_set_reaches_spread_element_values_by_their_label():
     assert c.elements["L1"].params["resistance"] == pytest.approx(0.25)
     nominal = circuit_with_settings(netlist, {"Vin": "10 V"})  # spreads stay at nominal
     assert nominal.elements["C1"].params["capacitance"] == pytest.approx(1e-6)
+
+
+BLOCK = """\
+block rc-leg  a -> b
+    parameter resistance  = 10 ohm
+    parameter capacitance = 47 nF
+    resistor  R  a -> mid  resistance
+    capacitor C  mid -> b  capacitance
+let Rs = 22 ohm
+voltage-source V1 in -> gnd 1 V
+rc-leg S1 in -> gnd  resistance=Rs  capacitance=100 nF
+simulate dc
+"""
+
+
+def test_block_parameters_can_be_swept_and_spread_by_their_hierarchical_names():
+    s = build_study(parse_netlist(BLOCK + "sweep S1.resistance = 10 ohm, 33 ohm\n", "b.mna"))
+    circuits = [s.circuit_for(r.overrides) for r in s.runs]
+    assert [c.elements["S1.R"].params["resistance"] for c in circuits] == pytest.approx([10.0, 33.0])
+    s = build_study(parse_netlist(BLOCK + "sweep Rs = 22 ohm, 47 ohm\nspread S1.capacitance uniform 10 %\n"
+                                  "spread S1.resistance uniform 1 ohm\nmonte-carlo runs=4 seed=2\n", "b.mna"))
+    assert len(s.runs) == 8
+    for plan in s.runs:
+        c = s.circuit_for(plan.overrides)
+        cap, res = c.elements["S1.C"].params["capacitance"], c.elements["S1.R"].params["resistance"]
+        nominal_r = c.params["Rs"].value  # the swept value the spread varies around
+        assert abs(cap / 100e-9 - 1) <= 0.1 and abs(res - nominal_r) <= 1.0
+    # Sample k draws the same deviation at both sweep points.
+    first = [s.circuit_for(p.overrides).elements["S1.C"].params["capacitance"] for p in s.runs]
+    assert first[:4] == pytest.approx(first[4:], rel=1e-12)
+    with pytest.raises(UnknownNameError, match="no parameter or element named 'S1.C'"):
+        build_study(parse_netlist(BLOCK + "spread S1.C uniform 10 %\nmonte-carlo runs=2\n", "b.mna"))

@@ -44,7 +44,7 @@ from __future__ import annotations
 import itertools
 import math
 from dataclasses import dataclass, field, replace
-from typing import Iterable, Mapping, Sequence
+from typing import Any, Iterable, Mapping, Sequence
 
 import numpy as np
 
@@ -157,35 +157,45 @@ class Study:
     sweep_shape: tuple[int, ...] = ()
     sweep_scales: tuple[str, ...] = ()  # "linear" | "log" per axis (for plots)
     sweep_labels: tuple[tuple[str, ...], ...] = ()  # the labels of each axis (names joined by "and")
-    base_values: dict[str, Quantity] = field(default_factory=dict)
+    base: Any = None  # the circuit of the rewritten netlist, every value nominal
 
     @property
     def file(self) -> str | None:
         return self.netlist.file
+
+    @property
+    def base_values(self) -> dict[str, Quantity]:
+        """Every value a run may set: ``let`` parameters and block parameters (``S1.resistance``)."""
+        return {**self.base.params, **self.base.block_parameters}
 
     def variable(self, label: str) -> Variable | None:
         return next((v for v in self.variables if v.label == label), None)
 
     def circuit_for(self, overrides: Mapping[str, float]):
         """A new circuit with ``overrides`` (parameter -> SI value) applied."""
-        return build_circuit(self.netlist, overrides, self.base_values)
+        return circuit_for(self.base, overrides)
 
     def settings_for(self, values: Mapping[str, str | float]) -> dict[str, float]:
-        """``--set`` values (label -> quantity text or SI float) as parameter overrides.
+        """``--set`` values (label -> quantity text or SI float) as parameter overrides (SI).
 
         Labels are those of the run table (swept and spread values) or any
-        ``let`` parameter of the file. Units are checked; a spread target
-        named here takes exactly the value given.
+        ``let`` or block parameter of the file. Units are checked; a spread
+        target named here takes exactly the value given.
         """
+        known = self.base_values
         out: dict[str, float] = {}
         for label, value in values.items():
             var = self.variable(label)
             parameter = var.parameter if var is not None else label
-            if parameter not in self.base_values:
-                known = sorted({v.label for v in self.variables} | {p for p in self.base_values if "~" not in p})
+            if parameter not in known:
+                import difflib
+
+                names = sorted({v.label for v in self.variables} | {p for p in known if "~" not in p})
+                close = difflib.get_close_matches(label, names, n=1)
                 raise UnknownNameError(f"--set {label}: no parameter or varied value named {label!r}",
-                                       hint="names: " + ", ".join(known) if known else "the file has no parameters")
-            out[parameter] = checked_value(value, self.base_values[parameter].dim, f"--set {label}")
+                                       hint=f"did you mean {close[0]!r}?" if close else
+                                       ("names: " + ", ".join(names)) if names else "the file has no parameters")
+            out[parameter] = checked_value(value, known[parameter].dim, f"--set {label}")
         return out
 
 
@@ -220,22 +230,37 @@ def _is_bare_number(text: str) -> bool:
 # Elaborating a variant.
 
 
-def build_circuit(netlist: nl.Netlist, overrides: Mapping[str, float], base: Mapping[str, Quantity]):
-    """Elaborate ``netlist`` with ``let`` values replaced by ``overrides`` (SI, in each
-    parameter's own unit). Every other value is re-evaluated from them."""
-    from ..circuit import _bulk_allocation, elaborate
+def circuit_for(base, overrides: Mapping[str, float]):
+    """A new circuit: ``base`` with ``overrides`` (parameter -> SI value, in each parameter's
+    own unit) applied through :meth:`~mna.circuit.Circuit.with_parameters`, so every value that
+    depends on them is evaluated again and checked.
 
-    unknown = [name for name in overrides if name not in base]
-    if unknown:
-        raise UnknownNameError(f"no parameter named {unknown[0]!r} to set")
-    statements = []
-    for st in netlist.statements:
-        if isinstance(st, nl.LetStatement) and st.name in overrides:
-            q = Quantity(overrides[st.name], base[st.name].dim)
-            st = nl.LetStatement(st.name, nl.Number(q, f"{q.value!r}", st.value.span), st.span)
-        statements.append(st)
-    with _bulk_allocation():
-        return elaborate(nl.Netlist(statements, netlist.file, netlist.text))
+    A spread of a block parameter (``S1.resistance~factor``) is applied to the
+    parameter's nominal in this run (after the run's other values), which
+    takes a second elaboration.
+    """
+    direct = {k: v for k, v in overrides.items() if not _block_spread_key(k)}
+    circuit = base.with_parameters(direct)
+    spread = {k: v for k, v in overrides.items() if _block_spread_key(k)}
+    if spread:
+        values = {}
+        for key, amount in spread.items():
+            label, kind = key.rsplit("~", 1)
+            nominal = circuit.block_parameters[label].value
+            values[label] = nominal * amount if "~" + kind == FACTOR else nominal + amount
+        circuit = base.with_parameters({**direct, **values})
+    return circuit
+
+
+def value_of(circuit, parameter: str) -> float:
+    """The SI value of a ``let`` or block parameter in ``circuit``."""
+    if parameter in circuit.params:
+        return circuit.params[parameter].value
+    return circuit.block_parameters[parameter].value
+
+
+def _block_spread_key(key: str) -> bool:
+    return "." in key and (key.endswith(FACTOR) or key.endswith(OFFSET))
 
 
 def _parameter_values(netlist: nl.Netlist) -> dict[str, Quantity]:
@@ -306,8 +331,11 @@ def find_target(netlist: nl.Netlist, t: nl.SpreadTarget) -> _Target:
     import difflib
 
     close = difflib.get_close_matches(t.name, sorted(set(lets) | set(elements)), n=1)
-    raise UnknownNameError(f"spread {t.label}: no parameter or element named {t.name!r}", t.span,
-                           hint=f"did you mean {close[0]!r}?" if close else None)
+    hint = f"did you mean {close[0]!r}?" if close else None
+    if "." in t.name:
+        hint = ("inside a block instance, spread one of its block parameters (S1.resistance), "
+                "or give the value a block parameter")
+    raise UnknownNameError(f"spread {t.label}: no parameter or element named {t.name!r}", t.span, hint=hint)
 
 
 def _main_operand(cls, st: nl.ElementStatement) -> int | None:
@@ -531,7 +559,8 @@ def build_study(netlist: nl.Netlist) -> Study:
     """The :class:`Study` a parsed file asks for (raises :class:`InputError` with the line)."""
     from ..circuit import elaborate
 
-    elaborate(netlist)  # the file as written must be valid before anything is varied
+    as_written = elaborate(netlist)  # the file as written must be valid before anything is varied
+    blocks = as_written.block_parameters
     sweeps = [st for st in netlist.statements if isinstance(st, nl.SweepStatement)]
     spread_lines = [st for st in netlist.statements if isinstance(st, nl.SpreadStatement)]
     mc = [st for st in netlist.statements if isinstance(st, nl.MonteCarloStatement)]
@@ -558,10 +587,14 @@ def build_study(netlist: nl.Netlist) -> Study:
         if first is not st:
             raise InputError(f"{st.target.label} has two spread lines (the first at line {first.span.line})",
                              st.target.span)
-    dims = {st.target.label: _target_dimension(netlist, st.target, original) for st in spread_lines}
+    def in_block(t: nl.SpreadTarget) -> bool:
+        return t.argument is None and t.name in blocks
+
+    dims = {st.target.label: blocks[st.target.name].dim if in_block(st.target)
+            else _target_dimension(netlist, st.target, original) for st in spread_lines}
     spreads = [_spread(st, original, dims[st.target.label]) for st in spread_lines]
-    rewritten, spread_params = rewrite_spreads(netlist, spreads, dims)
-    values = _parameter_values(rewritten)
+    rewritten, spread_params = rewrite_spreads(netlist, [sp for sp in spreads if not in_block(sp.target)], dims)
+    spread_params.update({sp.label: sp.label for sp in spreads if in_block(sp.target)})
     variables: list[Variable] = []
     axes: list[list[dict[str, float]]] = []
     shape, scales = [], []
@@ -573,7 +606,10 @@ def build_study(netlist: nl.Netlist) -> Study:
             if axis.name in seen:
                 raise InputError(f"{axis.name} is swept twice", axis.span)
             seen[axis.name] = axis.span
-            if axis.name not in original:
+            if axis.name in blocks and axis.name in spread_params:
+                raise InputError(f"{axis.name} is a block parameter with a spread line; sweep a let parameter "
+                                 "that sets it instead", axis.span)
+            if axis.name not in original and axis.name not in blocks:
                 import difflib
 
                 close = difflib.get_close_matches(axis.name, [p for p in original if "~" not in p], n=1)
@@ -582,7 +618,7 @@ def build_study(netlist: nl.Netlist) -> Study:
                                        "sweeps set let parameters; add 'let NAME = VALUE' and use it")
             spread_too = spread_params.get(axis.name) == axis.name
             parameter = axis.name + "~nominal" if spread_too else axis.name
-            dim = original[axis.name].dim
+            dim = (original[axis.name] if axis.name in original else blocks[axis.name]).dim
             vals, scale = axis_values(axis, original, dim)
             if columns and len(vals) != len(columns[0][1]):
                 raise InputError(f"sweep: {axis.name} has {_values(len(vals))} but {st.axes[0].name} has "
@@ -593,13 +629,12 @@ def build_study(netlist: nl.Netlist) -> Study:
             variables.append(Variable(label, parameter, dim, "sweep"))
             if spread_too:  # swept and spread: the sweep sets the nominal the spread varies around
                 rewritten = _split_nominal(rewritten, axis.name)
-                values = _parameter_values(rewritten)
         axes.append([{p: v[i] for p, v in columns} for i in range(len(columns[0][1]))])
         axis_labels.append(tuple(v.label for v in variables[len(variables) - len(columns):]))
         shape.append(len(columns[0][1]))
         scales.append(scale)
     for sp in spreads:
-        variables.append(Variable(sp.label, spread_params[sp.label], values[spread_params[sp.label]].dim, "spread"))
+        variables.append(Variable(sp.label, spread_params[sp.label], dims[sp.label], "spread"))
 
     points = [dict(itertools.chain.from_iterable(d.items() for d in combo)) for combo in itertools.product(*axes)]
     required = 1.0
@@ -634,7 +669,7 @@ def build_study(netlist: nl.Netlist) -> Study:
                     overrides.update(sp.overrides(d))
             plans.append(RunPlan(len(plans), overrides, None if deviations is None else k))
     return Study(rewritten, variables, spreads, plans, mode, seed, required, tuple(shape), tuple(scales),
-                 tuple(axis_labels), values)
+                 tuple(axis_labels), elaborate(rewritten))
 
 
 def _values(n: int) -> str:
