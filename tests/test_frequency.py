@@ -390,3 +390,105 @@ def test_bad_frequency_settings():
         c.frequency("10 rad/s", "1 kHz")
     with pytest.raises(InputError, match="increasing"):
         c.frequency(at=[100, 10])
+
+
+# --- the frequency analysis against a transient sine run ----------------------------
+# The steady state of a linear circuit driven by a sine is the phasor
+# solution (Nilsson & Riedel, Electric Circuits, ch. 9): the amplitude and
+# phase of v(out), fitted by least squares to sin, cos and a constant over
+# the last two periods of a transient run, must equal |H| and arg H. The
+# transient is run with the trapezoidal rule and a tight tolerance set here
+# (not the defaults), long enough for the filter's natural response
+# (time constant about 30 us) to decay below 1e-6 of the drive.
+
+SINE_FILTER = """
+voltage-source Vin in -> gnd sine(amplitude=1 V, frequency={f} Hz) stimulus=1 V
+inductor  Lf in -> out 10 uH resistance=5 mohm
+capacitor Cf out -> gnd 10 uF
+resistor  Rd out -> d 1.5 ohm
+capacitor Cd d -> gnd 40 uF
+resistor  Rl out -> gnd 2 ohm
+"""
+
+
+@pytest.mark.parametrize("f", [3e3, 16e3, 60e3])
+def test_frequency_response_matches_a_transient_sine_run(f):
+    c = parse(SINE_FILTER.format(f=f))
+    phasor = c.frequency(at=[f], record=["v(out)"])["v(out)"][0]
+    period = 1 / f
+    until = max(8 * period, 0.5e-3)
+    res = c.transient(until=until, method="trapezoidal", tolerance=1e-6, max_step=period / 100,
+                      record=["v(out)"])
+    t, v = res.time, res["v(out)"]
+    last = t >= until - 2 * period
+    basis = np.column_stack([np.sin(2 * np.pi * f * t[last]), np.cos(2 * np.pi * f * t[last]),
+                             np.ones(last.sum())])
+    a, b, _ = np.linalg.lstsq(basis, v[last], rcond=None)[0]
+    fitted = a + 1j * b  # |X| sin(wt + phi) = |X| cos(phi) sin(wt) + |X| sin(phi) cos(wt)
+    # Measured: amplitude within 1.3e-4, phase within 0.003 deg (the
+    # transient's own error at tolerance 1e-6); a wrong sign of jw or a
+    # missing stamp is off by far more.
+    assert abs(fitted) == pytest.approx(abs(phasor), rel=1e-3)
+    assert math.degrees(np.angle(fitted / phasor)) == pytest.approx(0.0, abs=0.03)
+
+
+# --- the command line --------------------------------------------------------------
+
+def test_mna_run_writes_the_frequency_csv_bode_plot_and_summary(tmp_path):
+    import csv
+    import json
+
+    from mna.cli import main
+
+    path = tmp_path / "rc.mna"
+    path.write_text(textwrap.dedent(RC) + "simulate frequency from=10 Hz to=100 kHz per-decade=10\n"
+                    "record v(out) / v(in), z(out -> gnd)\n", encoding="utf-8")
+    out = tmp_path / "out"
+    assert main(["run", str(path), "--out", str(out), "--quiet"]) == 0
+    rows = list(csv.reader((out / "frequency.csv").open(encoding="utf-8")))
+    assert rows[0] == ["frequency", "|v(out)/v(in)|", "dB v(out)/v(in)", "deg v(out)/v(in)",
+                       "|z(out -> gnd)|", "dB z(out -> gnd)", "deg z(out -> gnd)"]
+    assert len(rows) == 1 + 41
+    fc = 1 / (2 * math.pi * 1e3 * 100e-9)
+    f, mag, db, deg = (float(x) for x in rows[1][:4])
+    assert mag == pytest.approx(1 / math.sqrt(1 + (f / fc) ** 2), rel=1e-8)  # 10 significant digits written
+    assert db == pytest.approx(20 * math.log10(mag), abs=1e-7)
+    assert deg == pytest.approx(-math.degrees(math.atan(f / fc)), abs=1e-7)
+    assert (out / "bode.png").stat().st_size > 10_000
+    summary = json.loads((out / "summary.json").read_text(encoding="utf-8"))
+    assert summary["analyses"][0]["analysis"] == "frequency"
+    assert summary["analyses"][0]["signals"] == {"v(out)/v(in)": "", "z(out -> gnd)": "ohm"}
+
+
+def test_netlist_errors_of_simulate_frequency():
+    base = "voltage-source V1 a -> gnd 1 V stimulus=1 V\nresistor R1 a -> gnd 1 ohm\n"
+    cases = {
+        "simulate frequency per-decade=10\n": "needs from= and to=",
+        "simulate frequency from=1 kHz to=10 Hz\n": "must lie above",
+        "simulate frequency from=10 rad/s to=1 kHz\n": "angular speed",
+        "simulate frequency at=list(1 kHz, 100 Hz)\n": "must increase",
+        "simulate frequency at=1 kHz\n": "list of frequencies",
+        "simulate frequency from=1 Hz to=1 kHz at=list(1 kHz)\n": "not both",
+        "simulate frequency from=1 Hz to=1 GHz per-decade=1e5\n": "at most",
+    }
+    for line, message in cases.items():
+        with pytest.raises(InputError, match=message) as info:
+            mna.parse(base + line)
+        assert info.value.span is not None and info.value.span.line == 3, line
+
+
+def test_small_signal_records_need_a_frequency_analysis():
+    with pytest.raises(InputError, match="only 'simulate frequency'"):
+        mna.parse("voltage-source V1 a -> gnd 1 V\nresistor R1 a -> gnd 1 ohm\nsimulate dc\nrecord z(a -> gnd)\n")
+
+
+def test_transient_and_frequency_in_one_file():
+    text = textwrap.dedent(RC) + ("simulate transient until=1 ms\nsimulate frequency at=list(1 kHz)\n"
+                                  "record v(out), z(out -> gnd)\ncheck max(v(out)) < 13 V\n"
+                                  "check magnitude(z(out -> gnd), 1 kHz) < 1 kohm\n")
+    from mna.measure import run_and_check
+
+    outcome = run_and_check(mna.parse(text))
+    assert outcome.failure is None and outcome.report.count("pass") == 2
+    waves, response = outcome.results
+    assert "z(out -> gnd)" not in waves and "z(out -> gnd)" in response
