@@ -27,7 +27,7 @@ from pathlib import Path
 from typing import Callable, Iterable, Sequence
 from xml.etree import ElementTree as ET
 
-from .errors import InputError
+from .errors import InputError, printable, printable_lines
 from .measure import CheckResult, MeasureResult
 
 #: File status -> exit status of ``mna check`` (the highest over all files wins).
@@ -286,6 +286,16 @@ def _suite(result: FileResult) -> ET.Element:
     return suite
 
 
+def _printable_tree(root: ET.Element) -> None:
+    """Escape control characters in every attribute and text (XML 1.0 cannot hold them,
+    and a CI page would show them raw)."""
+    for node in root.iter():
+        for key, value in node.attrib.items():
+            node.set(key, printable(value))
+        if node.text:
+            node.text = printable_lines(node.text)
+
+
 def junit_xml(results: Sequence[FileResult], seconds: float, name: str = "mna check") -> bytes:
     """A JUnit XML report (UTF-8 bytes) of the files' checks."""
     root = ET.Element("testsuites", name=name)
@@ -294,5 +304,6 @@ def junit_xml(results: Sequence[FileResult], seconds: float, name: str = "mna ch
         root.set(key, str(sum(int(s.get(key)) for s in suites)))
     root.set("time", f"{seconds:.3f}")
     root.extend(suites)
+    _printable_tree(root)
     ET.indent(root)
     return ET.tostring(root, encoding="utf-8", xml_declaration=True) + b"\n"

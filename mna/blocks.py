@@ -288,6 +288,8 @@ def _read(path: Path, st: nl.BlocksFromStatement) -> nl.Netlist:
         raise InputError(f"{str(path)!r} is a folder, not a netlist file", st.span) from None
     except UnicodeDecodeError as exc:
         raise NetlistSyntaxError(f"{path}: not UTF-8 text ({exc.reason} at byte {exc.start})", st.span) from None
+    except OSError as exc:  # no permission, a broken device...
+        raise InputError(f"cannot read {str(path)!r}: {exc.strerror or exc}", st.span) from None
     return nl.parse_netlist(text, str(path))
 
 

@@ -125,6 +125,35 @@ def _refuse_celsius(q: Quantity, what: str, span: Span | None) -> None:
         raise UnitsError(str(exc), span) from None
 
 
+#: Element arguments, waveform parameters and run settings are 0 or of a
+#: magnitude between 1e-100 and 1e100 (SI): an element's formulas multiply
+#: and square its values, and floating point ends near 1e308.
+MAGNITUDE_LIMIT = 1e100
+
+
+def _check_magnitude(value: float, what: str, span: Span | None) -> float:
+    """``value`` (SI) if it is finite and 0 or within 1e-100..1e100; an input error otherwise."""
+    size = abs(value)
+    if not (size == 0.0 or 1.0 / MAGNITUDE_LIMIT <= size <= MAGNITUDE_LIMIT):
+        raise InputError(f"{what} is {value:g} in SI units, outside the range mna computes with "
+                         f"(0, or a magnitude from {1 / MAGNITUDE_LIMIT:g} to {MAGNITUDE_LIMIT:g})", span)
+    return value
+
+
+def _check_range(arg: Arg, value: float, what: str, span: Span | None) -> None:
+    """The physical range an argument declares (``Arg.minimum``, ``Arg.maximum``)."""
+    low, high = arg.minimum, arg.maximum
+    if (low is not None and value < low) or (high is not None and value > high):
+        from .units import unit_symbol
+
+        unit = f" {unit_symbol(arg.dimension)}" if arg.dimension is not None else ""
+        if low is not None and high is not None:
+            bounds = f"between {low:g}{unit} and {high:g}{unit}"
+        else:
+            bounds = f"at least {low:g}{unit}" if low is not None else f"at most {high:g}{unit}"
+        raise InputError(f"{what} must be {bounds} (the range its model holds for), got {value:g}{unit}", span)
+
+
 def _check_dimension(q: Quantity, want: Dimension, what: str, span: Span | None, got_text: str | None = None) -> float:
     if q.dim != want:
         got = describe(q.dim)
@@ -228,7 +257,7 @@ class Elaborator:
         if want is None:
             return q.value
         text = expr.text if isinstance(expr, nl.Number) else None
-        return _check_dimension(q, want, what, expr.span, text)
+        return _check_magnitude(_check_dimension(q, want, what, expr.span, text), what, expr.span)
 
     def waveform(self, expr: nl.Expr, want: Dimension, what: str) -> Waveform:
         if isinstance(expr, nl.Call) and expr.func in ("step", "pwm", "sine", "piecewise"):
@@ -346,6 +375,7 @@ class Elaborator:
             raise InputError(f"{what} must be positive, got {value:g}", expr.span)
         if arg.nonnegative and value < 0:
             raise InputError(f"{what} cannot be negative, got {value:g}", expr.span)
+        _check_range(arg, value, what, expr.span)
         return value
 
     # -- elements -------------------------------------------------------------
@@ -364,6 +394,10 @@ class Elaborator:
             raise
         except (ValueError, TypeError) as exc:
             raise InputError(f"{st.kind} {label}: {exc}", st.name_span) from None
+        except ArithmeticError as exc:  # an overflow or a division by zero in the element's own formulas
+            raise InputError(f"{st.kind} {label}: its arguments lie outside the range its model can compute "
+                             f"with ({exc})", st.name_span,
+                             hint="check the values against the element's data sheet") from None
 
     def bind(self, cls, st: nl.ElementStatement) -> tuple[dict[str, Any], dict[str, Any], dict[str, Span]]:
         """Map a statement's operands and arguments onto a kind's ports and arguments.
@@ -988,10 +1022,12 @@ def _python_value(arg: Arg, value: Any, what: str, params: dict[str, Quantity] |
         raise InputError(f"{what} needs a number or a quantity like '4.7 uF', got {value!r}")
     if not math.isfinite(number):
         raise InputError(f"{what} must be a finite number, got {number!r}")
+    _check_magnitude(number, what, None)
     if arg.positive and not number > 0:
         raise InputError(f"{what} must be positive, got {number:g}")
     if arg.nonnegative and number < 0:
         raise InputError(f"{what} cannot be negative, got {number:g}")
+    _check_range(arg, number, what, None)
     return number
 
 
@@ -1115,6 +1151,8 @@ def load(path: str | Path, parameters: Mapping[str, Any] | None = None) -> Circu
         raise InputError(f"{path}: is a folder, not a netlist file") from None
     except UnicodeDecodeError as exc:
         raise NetlistSyntaxError(f"{path}: not UTF-8 text ({exc.reason} at byte {exc.start})") from None
+    except OSError as exc:  # no permission, a broken device...
+        raise InputError(f"{path}: cannot read the file: {exc.strerror or exc}") from None
     return parse(text, str(path), parameters)
 
 
@@ -1135,6 +1173,8 @@ def _override(st: nl.LetStatement, original: Quantity, value: Any) -> Quantity:
     if isinstance(value, bool) or not isinstance(value, (int, float)):
         raise InputError(f"{what}: expected quantity text such as '5 ohm' or a number in SI units, "
                          f"got {type(value).__name__}")
+    if not math.isfinite(value):
+        raise InputError(f"{what} must be a finite number, got {value!r}")
     return Quantity(float(value), original.dim)
 
 

@@ -84,24 +84,24 @@ def main(argv: Sequence[str] | None = None) -> int:
 
 
 def _error_exit(exc: BaseException) -> int:
-    from .errors import InputError, SimulationError
+    from .errors import InputError, SimulationError, printable_lines
 
     if isinstance(exc, InputError):
         print(f"error: {exc}", file=sys.stderr)
         return EXIT_INPUT
     if isinstance(exc, SimulationError):
         where = f" (t = {exc.time:.6g} s)" if exc.time is not None else ""
-        print(f"simulation failed{where}: {exc.message}", file=sys.stderr)
+        print(printable_lines(f"simulation failed{where}: {exc.message}"), file=sys.stderr)
         return EXIT_SIMULATION
-    print(f"internal error in mna (please report it with the netlist): {type(exc).__name__}: {exc}",
-          file=sys.stderr)
+    print(printable_lines(f"internal error in mna (please report it with the netlist): "
+                          f"{type(exc).__name__}: {exc}"), file=sys.stderr)
     return EXIT_INTERNAL
 
 
 def cmd_run(args) -> int:
     from . import load
     from .console import RunProgress, check_lines, is_terminal, measurement_lines, wants_colour
-    from .errors import InputError, MnaError
+    from .errors import InputError, MnaError, printable, printable_lines
     from .measure import run_and_check
     from .report import summary, write_json
 
@@ -127,9 +127,9 @@ def cmd_run(args) -> int:
     except Exception as exc:  # noqa: BLE001 - last line of defence: no traceback for users
         return _error_exit(exc)
 
-    say(f"circuit {circuit.name}" + (f": {circuit.title}" if circuit.title else ""))
+    say(printable(f"circuit {circuit.name}" + (f": {circuit.title}" if circuit.title else "")))
     for w in circuit.warnings:
-        print(f"warning: {w}", file=sys.stderr)
+        print(printable_lines(f"warning: {w}"), file=sys.stderr)
     try:
         outputs = _write_results(circuit, outcome.results, out_dir, args, say)
         extra = outcome.report.to_json()

@@ -42,14 +42,55 @@ class Span(NamedTuple):
         return f"line {self.line}, column {self.column}"
 
     def context(self) -> str:
-        """The source line and a caret under the column, or '' if unknown."""
+        """The source line and a caret under the column, or '' if unknown.
+
+        Control characters in the line are shown escaped (``\\x1b``), so a
+        netlist cannot drive the terminal or break an XML report through an
+        error message; a line longer than :data:`CONTEXT_WIDTH` is shown as
+        a window around the column.
+        """
         if self.source_line is None:
             return ""
         text = self.source_line.rstrip("\r\n").expandtabs(1)
+        column = max(1, min(self.column, len(text) + 1))
         width = 1
         if self.end_column and self.end_column > self.column:
             width = self.end_column - self.column
-        return f"    {text}\n    {' ' * (self.column - 1)}{'^' * width}"
+        if len(text) > CONTEXT_WIDTH:
+            start = max(0, column - 1 - CONTEXT_WIDTH // 2)
+            head = "..." if start else ""
+            text = head + text[start:start + CONTEXT_WIDTH] + ("..." if start + CONTEXT_WIDTH < len(text) else "")
+            column = column - start + len(head)
+            width = min(width, CONTEXT_WIDTH)
+        before = printable(text[:column - 1])
+        at = printable(text[column - 1:column - 1 + width]) or " "
+        return f"    {printable(text)}\n    {' ' * len(before)}{'^' * len(at)}"
+
+
+#: Longest source line shown whole under an error message (characters).
+CONTEXT_WIDTH = 160
+
+_CONTROL = {c: f"\\x{c:02x}" for c in [*range(0x00, 0x09), *range(0x0a, 0x20), *range(0x7f, 0xa0)]}
+_CONTROL.update({c: f"\\u{c:04x}" for c in (0x2028, 0x2029, 0xfeff, 0xfffe, 0xffff,
+                                             *range(0x200b, 0x2010), *range(0x202a, 0x202f),
+                                             *range(0x2066, 0x206a), *range(0xd800, 0xe000))})
+
+
+def printable(text: str) -> str:
+    """``text`` with control characters escaped (``\\x1b``, ``\\x00``), tabs kept.
+
+    For anything taken from a netlist or a file name and shown on a
+    terminal, written to a log or put into an XML report: escape sequences
+    could clear a screen or set a window title, and XML 1.0 cannot hold
+    most control characters at all. Line breaks are escaped too; split
+    multi-line text first and escape each line (:func:`printable_lines`).
+    """
+    return text.translate(_CONTROL) if text and not text.isprintable() else text
+
+
+def printable_lines(text: str) -> str:
+    """:func:`printable` line by line: the line breaks stay."""
+    return "\n".join(printable(line) for line in text.split("\n"))
 
 
 class MnaError(Exception):
@@ -102,7 +143,7 @@ class InputError(MnaError, ValueError):
             parts.append(self.span.context())
         if self.hint:
             parts.append(f"    hint: {self.hint}")
-        return "\n".join(parts)
+        return printable_lines("\n".join(parts))
 
 
 class NetlistSyntaxError(InputError):

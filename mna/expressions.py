@@ -17,7 +17,7 @@ import numpy as np
 
 from .errors import InputError, Span, UnitsError, UnknownNameError
 from .netlist import BinaryOp, Call, Compare, Expr, Name, Negate, NodePair, Number, Pair, String, Word
-from .units import DIMENSIONLESS, Dimension, DimensionError, Quantity, describe
+from .units import DIMENSIONLESS, MAX_UNIT_EXPONENT, Dimension, DimensionError, Quantity, describe
 
 CONSTANTS: dict[str, Quantity] = {"pi": Quantity(math.pi, DIMENSIONLESS)}
 
@@ -193,7 +193,8 @@ def evaluate(expr: Expr, params: Mapping[str, Quantity], call_handler: CallHandl
         return evaluate(e, params, call_handler)
 
     if isinstance(expr, BinaryOp):
-        return _binary(expr, sub(expr.left), sub(expr.right))
+        left, right = sub(expr.left), sub(expr.right)
+        return _finite(_binary(expr, left, right), expr, (left, right))
     if isinstance(expr, Negate):
         operand = sub(expr.operand)
         return -operand if isinstance(operand, Quantity) else Samples(-operand.value, operand.dim)
@@ -212,8 +213,22 @@ def evaluate(expr: Expr, params: Mapping[str, Quantity], call_handler: CallHandl
         if expr.named:
             raise InputError(f"{expr.func}() takes no named arguments", expr.named[0][2])
         args = [sub(a) for a in expr.args]
-        return fn(args, expr.span)
+        return _finite(fn(args, expr.span), expr, args)
     raise InputError("expected a number or quantity here", getattr(expr, "span", None))
+
+
+def _finite(result: Value, expr: Expr, operands) -> Value:
+    """``result``, unless finite numbers gave one that is not finite (an input error at ``expr``).
+
+    ``1e200 * 1e200`` is an error here rather than inf in a circuit. (A
+    placeholder NaN, used while measure lines are checked before a run,
+    passes through; so do waveform samples.)
+    """
+    if (isinstance(result, Quantity) and not math.isfinite(result.value)
+            and all(isinstance(a, Quantity) and math.isfinite(a.value) for a in operands)):
+        raise InputError(f"this gives {result.value!r}, not a finite number (a result beyond 1e308, "
+                         "or inf - inf)", expr.span)
+    return result
 
 
 def _binary(expr: BinaryOp, left: Value, right: Value) -> Value:
@@ -233,6 +248,9 @@ def _binary(expr: BinaryOp, left: Value, right: Value) -> Value:
     if isinstance(right, Samples) or not right.dim.is_dimensionless:
         raise UnitsError("an exponent must be a plain number, not a waveform", expr.right.span)
     power = right.value
+    if not left.dim.is_dimensionless and abs(power) > MAX_UNIT_EXPONENT:
+        raise UnitsError(f"a waveform with a unit raised to the power {power:g}: units take exponents "
+                         f"up to {MAX_UNIT_EXPONENT} either way", expr.right.span)
     exponent: Any = int(power) if float(power).is_integer() else power
     if not left.dim.is_dimensionless and not isinstance(exponent, int):
         raise UnitsError("a waveform with a unit takes whole-number powers only", expr.right.span)
@@ -255,6 +273,9 @@ def _scalar_binary(expr: BinaryOp, left: Quantity, right: Quantity) -> Quantity:
             raise UnitsError(f"an exponent must be a plain number, got {describe(right.dim)}", expr.right.span)
         exponent = right.value
         if not left.dim.is_dimensionless:
+            if abs(exponent) > MAX_UNIT_EXPONENT:
+                raise UnitsError(f"a quantity with a unit raised to the power {exponent:g}: units take "
+                                 f"exponents up to {MAX_UNIT_EXPONENT} either way", expr.right.span)
             if float(exponent).is_integer():
                 exponent = int(exponent)
             else:
@@ -262,5 +283,7 @@ def _scalar_binary(expr: BinaryOp, left: Quantity, right: Quantity) -> Quantity:
         return left ** exponent
     except DimensionError as exc:
         raise UnitsError(str(exc), expr.span) from None
+    except InputError:
+        raise
     except (OverflowError, ZeroDivisionError, ValueError) as exc:
         raise InputError(f"cannot compute {expr.op}: {exc}", expr.span) from None

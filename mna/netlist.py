@@ -26,7 +26,7 @@ from typing import Union
 import lark
 from lark import Lark, Token, Transformer
 
-from .errors import NetlistSyntaxError, Span, UnitsError
+from .errors import InputError, NetlistSyntaxError, Span, UnitsError
 from .units import Quantity, UnitError, parse_quantity
 
 # --------------------------------------------------------------------------
@@ -809,12 +809,46 @@ def _parse_chunk(chunk: _Chunk, file: str | None, lines: list[str]) -> Statement
         tree = _parser().parse(chunk.text)
     except lark.exceptions.UnexpectedInput as exc:
         raise _syntax_error(exc, chunk, file, lines) from None
+    _check_depth(tree, chunk, file, lines)
     try:
         return _Builder(chunk, file, lines).transform(tree)
     except lark.exceptions.VisitError as exc:
         # An error of ours raised while building (a bad unit) comes
         # wrapped by lark; raise it as it is.
         raise exc.orig_exc from None
+
+
+#: Deepest nesting of an expression (operators, signs, parentheses, calls).
+#: The tree is built and evaluated recursively; this keeps every walk far
+#: from Python's recursion limit. Real netlists nest a handful of levels.
+MAX_DEPTH = 100
+
+
+def _check_depth(tree, chunk: _Chunk, file: str | None, lines: list[str]) -> None:
+    """Refuse a statement nested deeper than :data:`MAX_DEPTH` (walked without recursion)."""
+    stack = [(tree, 1)]
+    while stack:
+        node, depth = stack.pop()
+        if depth > MAX_DEPTH:
+            token = _first_token(node)
+            line = chunk.first_line + (token.line - 1 if token is not None else 0)
+            src = lines[line - 1] if 0 < line <= len(lines) else None
+            raise NetlistSyntaxError(
+                f"this expression is nested more than {MAX_DEPTH} levels deep (operators, signs, "
+                "parentheses and calls inside one another)", Span(line, token.column if token else 1, None,
+                                                                  file, src),
+                hint="split it into several 'let' lines")
+        stack.extend((child, depth + 1) for child in node.children if isinstance(child, lark.Tree))
+
+
+def _first_token(node) -> Token | None:
+    """The leftmost token under a tree node (walked without recursion)."""
+    while isinstance(node, lark.Tree):
+        for child in node.children:
+            if isinstance(child, Token):
+                return child
+        node = next((c for c in node.children if isinstance(c, lark.Tree)), None)
+    return None
 
 
 _BLOCK_HEAD = re.compile(r"block[ \t]")
@@ -879,4 +913,6 @@ def parse_file(path: str | Path) -> Netlist:
         text = path.read_text(encoding="utf-8")
     except UnicodeDecodeError as exc:
         raise NetlistSyntaxError(f"{path}: not UTF-8 text ({exc.reason} at byte {exc.start})") from None
+    except OSError as exc:  # missing, no permission, a folder...
+        raise InputError(f"{path}: cannot read the file: {exc.strerror or exc}") from None
     return parse_netlist(text, file=str(path))

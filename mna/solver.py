@@ -173,6 +173,10 @@ def singular_unknowns(system: System, A) -> tuple[str, ...]:
         return system.describe_unknowns(idx[:8])
     if n <= 2000:
         dense = A.toarray()
+        if not np.isfinite(dense).all():  # (an SVD of such a matrix may never return)
+            rows = np.flatnonzero(~np.isfinite(dense).all(axis=1))
+            return system.describe_unknowns(rows[:8]) + (
+                "(the matrix holds an infinite or undefined entry: an element value out of range)",)
         _, sv, vt = np.linalg.svd(dense)
         null = np.abs(vt[-1])
         idx = np.flatnonzero(null > 0.1 * null.max())

@@ -409,12 +409,19 @@ def _by_lowercase() -> dict[str, list[str]]:
 _KNOWN_BY_LOWERCASE = _by_lowercase()
 
 
+#: Tokens longer than this get no suggestion beyond a change of case (two
+#: of the longest symbols joined); the searches below are quadratic.
+_LONGEST_SUGGESTION = 24
+
+
 def _suggestions(token: str) -> list[str]:
     """Likely intended spellings for an unknown unit symbol (best first)."""
     lowered = token.lower()
     found = list(_KNOWN_BY_LOWERCASE.get(lowered, []))  # wrong case: "Ohm", "KV"
     plural = _KNOWN_BY_LOWERCASE.get(lowered[:-1], []) if len(token) >= 4 and lowered.endswith("s") else []
     found += plural  # "ohms" -> "ohm"
+    if len(token) > _LONGEST_SUGGESTION:
+        return found  # no unit, nor a pair of units, is this long: no search
     if not plural:
         for cut in range(1, len(token)):  # missing '*': "Nm" -> "N*m"
             left, right = token[:cut], token[cut:]
@@ -426,8 +433,13 @@ def _suggestions(token: str) -> list[str]:
     return list(dict.fromkeys(found))
 
 
+def _shorten(text: str, most: int = 60) -> str:
+    """``text`` cut to ``most`` characters for a message (a runaway token is quoted in part)."""
+    return text if len(text) <= most else f"{text[:most - 20]}...({len(text)} characters)"
+
+
 def _unknown_unit(token: str, text: str, offset: int) -> UnitError:
-    message = f"unknown unit {token!r} in {text!r}"
+    message = f"unknown unit {_shorten(token)!r} in {_shorten(text)!r}"
     if token[0] == "c" and token[1:] in UNITS:
         message += " (the prefix 'c', centi, is used only in 'cm')"
     hints = _suggestions(token)
@@ -443,6 +455,14 @@ def _unknown_unit(token: str, text: str, offset: int) -> UnitError:
 _SPACE = re.compile(r"[ \t]*")
 _SYMBOL = re.compile(r"%|\u00b0C|1(?=[ \t]*/)|[^\W\d_]+")  # "1" only as in "1/s"
 _EXPONENT = re.compile(r"[+-]?\d+")
+
+
+#: Largest exponent of a unit in a quantity (``m^3``, ``s^-2``; nothing physical needs more).
+MAX_UNIT_EXPONENT = 12
+#: Decimal exponents of the literals mna reads: 1e-300 to 1e300 (floating point
+#: ends near 1e308; below 2.2e-308 it loses precision, and 1e-320 ohm becomes
+#: an infinite conductance).
+MAX_DECIMAL_EXPONENT = 300
 
 
 def _factor(text: str, pos: int) -> tuple[_Unit, int]:
@@ -464,7 +484,11 @@ def _factor(text: str, pos: int) -> tuple[_Unit, int]:
                 f"expected a whole-number exponent after '^' in {text!r} (e.g. 'm^2', 's^-1')",
                 pos + 1,
             )
-        exp = int(exp_match.group())
+        digits = exp_match.group()
+        exp = int(digits) if len(digits) <= 6 else 10**6  # (int() of thousands of digits is refused)
+        if abs(exp) > MAX_UNIT_EXPONENT:
+            raise UnitError(f"the exponent {_shorten(digits)} in {_shorten(text)!r} is out of range (a unit's exponent is at most "
+                            f"{MAX_UNIT_EXPONENT} either way)", pos + 1)
         unit = _Unit(unit.pow10 * exp, unit.factor**exp, unit.dim**exp, False)
         pos = exp_match.end()
     return unit, pos
@@ -726,7 +750,11 @@ def parse_quantity(text: str) -> Quantity:
     except UnitError:
         _parse_parts(text, match.end())  # raises again, quoting the whole quantity
         raise
-    value = float(Decimal(match.group()).scaleb(pow10))
+    number = Decimal(match.group())
+    if number and abs(number.adjusted() + pow10) > MAX_DECIMAL_EXPONENT:
+        raise UnitError(f"{text.strip()[:40]!r} is out of range: quantities lie between "
+                        f"1e-{MAX_DECIMAL_EXPONENT} and 1e{MAX_DECIMAL_EXPONENT} in SI units (or are 0)", start)
+    value = float(number.scaleb(pow10))
     if factor != 1.0:
         value *= factor
     if text[match.end():].strip() in CELSIUS:

@@ -111,3 +111,29 @@ def plan(system: System, circuit: "Circuit", refs: Sequence[SignalRef]) -> tuple
     for ref in refs:
         compute_signal(ref, circuit, probe)
     return sorted(probe.need_x), sorted(probe.need_states)
+
+
+def require_finite(signals: dict, what: str, time: np.ndarray | None = None, partial=None) -> None:
+    """Raise a :class:`~mna.errors.SimulationError` if any signal holds inf or NaN.
+
+    No result leaves the engine as a success with a value that is not a
+    number: ``what`` names the analysis; with ``time`` (s) the error says
+    when the first such value appeared, and ``partial`` is kept on it.
+    """
+    from ..errors import SimulationError
+
+    bad = [label for label, v in signals.items() if not np.isfinite(np.asarray(v, dtype=float)).all()]
+    if not bad:
+        return
+    when = None
+    if time is not None and len(time):
+        first = min(int(np.argmax(~np.isfinite(np.asarray(signals[b], dtype=float)))) for b in bad)
+        when = float(time[first])
+    at = f" from t = {when:.6g} s" if when is not None else ""
+    if partial is not None:
+        partial.status = "failed"
+        partial.message = f"{what} gave values that are not finite numbers{at}"
+    raise SimulationError(
+        f"{what} gave values that are not finite numbers{at} ({', '.join(bad[:6])}"
+        f"{', ...' if len(bad) > 6 else ''}): an element value is probably far outside its usual range",
+        time=when, unknowns=tuple(bad), partial=partial)

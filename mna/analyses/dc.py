@@ -19,7 +19,7 @@ from ..results import OperatingPoint
 from ..runstate import DiscreteStates
 from ..solver import Factorizer, SingularMatrix, newton, raise_singular
 from ..system import Probe, System
-from .common import compute_signal, dc_leak, default_signals, prepare, unit_label
+from .common import compute_signal, dc_leak, default_signals, prepare, require_finite, unit_label
 
 if TYPE_CHECKING:  # pragma: no cover
     from ..circuit import Circuit, SignalRef
@@ -233,6 +233,7 @@ def operating_point(circuit: "Circuit", signals: Sequence["SignalRef"] = ()) -> 
     labels.update({r.label: r for r in circuit.records})
     labels.update({r.label: r for r in signals})
     values = {label: float(compute_signal(ref, circuit, probe)[0]) + 0.0 for label, ref in labels.items()}
+    require_finite(values, "the DC operating point")
     return OperatingPoint(
         values=values,
         units={label: unit_label(ref) for label, ref in labels.items()},

@@ -51,7 +51,7 @@ from ..solver import Factorizer, SingularMatrix, newton, raise_singular
 from ..system import Probe, System
 from .. import limits
 from ..units import AMPERE, VOLT
-from .common import compute_signal, dc_leak, default_signals, plan, prepare, unit_label
+from .common import compute_signal, dc_leak, default_signals, plan, prepare, require_finite, unit_label
 from .dc import solve_dc
 from .settings import TransientSettings as _Settings
 
@@ -136,7 +136,9 @@ def transient(circuit: "Circuit", settings: dict[str, Any], records: Sequence[Si
     except SimulationError as exc:
         exc.partial = _finish(circuit, system, refs, run, started, cfg, "failed", exc.message)
         raise
-    return _finish(circuit, system, refs, run, started, cfg, "ok", "")
+    waves = _finish(circuit, system, refs, run, started, cfg, "ok", "")
+    require_finite(waves.signals, "the transient run", waves.time, partial=waves)
+    return waves
 
 
 class _Run:

@@ -90,6 +90,9 @@ class Arg:
       the circuit's parameters. Without it the element gets the raw
       expression tree.
 
+    ``minimum`` and ``maximum`` (SI, inclusive) bound a quantity to the
+    range its model holds for (a junction temperature of 10 K to 1000 K).
+
     ``angular=True`` marks an angular speed (dimension 1/s): a value
     written in hertz is refused as ambiguous (cycles or radians per
     second?) and the user is asked for rad/s or rpm.
@@ -106,6 +109,9 @@ class Arg:
     angular: bool = False
     absolute: bool = False  # an absolute temperature: takes K or a literal in degC
     resolve: Any = None
+    #: The physical range of a quantity (SI), checked at input; None: no bound.
+    minimum: float | None = None
+    maximum: float | None = None
 
     @property
     def required(self) -> bool:

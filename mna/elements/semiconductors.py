@@ -153,7 +153,10 @@ class Diode(TwoTerminal):
             doc="reverse current Ibr at v = -Vbr (a Zener's test current Izt)"),
         Arg("breakdown-ideality", DIMENSIONLESS, default=1.0, positive=True,
             doc="slope factor nbr of the breakdown exponential"),
-        Arg("temperature", KELVIN, default=DEFAULT_TEMPERATURE, positive=True,
+        # The exponential law of the junction is not a model of a diode far
+        # from room temperature; below about 1 K its thermal voltage also
+        # leaves the range the solver resolves.
+        Arg("temperature", KELVIN, default=DEFAULT_TEMPERATURE, positive=True, minimum=10.0, maximum=1000.0,
             doc="junction temperature (default 298.15 K, 25 degC)"),
     )
     summary = "junction diode (Shockley) with series resistance, capacitance and optional breakdown"
