@@ -115,10 +115,16 @@ def test_sine_driven_secondary_against_phasors_and_the_ideal_transformer_limit(k
     expected = abs(secondary_phasor_ratio(l1, l2, k, r, 2 * math.pi * f)) * vp
     # Sampling a sine 2000 times a period misses its peak by (2 pi/2000)^2/8 = 1.2e-6.
     assert amplitude(res, "v(s)", period) == pytest.approx(expected, rel=2e-5)
-    # Ideal-transformer limit (Alexander & Sadiku ch. 13): v2/v1 -> n as k -> 1;
-    # the gap is (1 - k) plus the leakage term, both computed.
-    gap = 1 - expected / (n * vp)
-    assert gap == pytest.approx(1 - k + 0.5 * (2 * math.pi * f * l2 * (1 - k * k) / r) ** 2, rel=0.05)
+    # Ideal-transformer limit (Alexander & Sadiku ch. 13): v2/v1 -> n as k -> 1.
+    # From the phasor ratio, |V2/V1| = k n / |1 + j x| with x = w L2 (1 - k^2)/R,
+    # so the simulated gap below the ideal ratio is 1 - k/sqrt(1 + x^2): the
+    # coupling's (1 - k) plus the leakage's x^2/2. The amplitude is within
+    # 2e-5 of the phasor's (above), so the gap is within 2e-5 (absolute);
+    # for k = 0.9999 a factor-of-two error in the leakage term moves it by 4e-7,
+    # in (1 - k) by 1e-4.
+    x = 2 * math.pi * f * l2 * (1 - k * k) / r
+    gap = 1 - amplitude(res, "v(s)", period) / (n * vp)
+    assert gap == pytest.approx(1 - k / math.sqrt(1 + x * x), abs=2e-5)
     # Coupled inductors dissipate nothing: mean power in equals mean power out.
     last = res.time >= res.time[-1] - period
     t = res.time[last]
@@ -213,9 +219,20 @@ def test_transformer_matches_the_equivalent_coupled_inductors():
     assert np.allclose(a["v(s)"], b["v(s)"], atol=1e-9 * 50)
     assert np.allclose(a["i1(T1)"], b["i(L1)"], atol=1e-9)
     assert np.allclose(a["i2(T1)"], b["i(L2)"], atol=1e-9)
-    # Near the ideal transformer: v2 ~ v1/n (the leakage and resistances take
-    # a few per cent here).
-    assert amplitude(a, "v(s)", 50e-6) == pytest.approx(50 / n * 2 / (2 + rs + rp / n**2), rel=0.03)
+    # Against the phasor solution of the same coupled windings (Alexander &
+    # Sadiku ch. 13, with the leakage in L1, L2 and M): mesh equations
+    # (Rp + jwL1) I1 + jwM I2 = V, jwM I1 + (jwL2 + Rs + RL) I2 = 0, v(s) = -RL I2.
+    w = 2 * math.pi * 20e3
+    z = np.array([[rp + 1j * w * l1, 1j * w * m], [1j * w * m, 1j * w * l2 + rs + 2.0]])
+    i1, i2 = np.linalg.solve(z, [50.0, 0.0])
+    steady = abs(-2.0 * i2)
+    # Tolerance: the run starts at rest, and the magnetising current's offset
+    # decays with L1/Rp = 15 ms, far longer than the run; its voltage Rp*di/dt
+    # and the leakage's share of it move the secondary by less than 0.2 %
+    # (offset 50 V/(w L1) = 0.13 A at most, times Rp/n on the secondary side,
+    # 5 mV of 9.5 V; measured 5e-4). A leakage left out (the ideal
+    # 10 V * 2/(2 + rs + rp/n^2)) differs by 2.1 %.
+    assert amplitude(a, "v(s)", 50e-6) == pytest.approx(steady, rel=2e-3)
 
 
 def test_transformer_needs_positive_leakage():
