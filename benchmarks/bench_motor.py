@@ -1,6 +1,6 @@
 """Motor start-up benchmark: steps per second of the transient engine.
 
-Cases (REFERENCES.md §6 machine, "case A", started from rest on 12 V):
+Cases (the DC machine of Franklin, Powell & Emami-Naeini, *Feedback Control of Dynamic Systems*, ch. 2, from memory; an example machine, "case A", started from rest on 12 V):
 
 1. linear: motor + inertia + friction, 0.5 s at a 10 us step (50,000 steps)
    -- no brush drop, so the run takes the engine's linear path (one

@@ -195,7 +195,7 @@ def run_switched(periods: int = 100) -> None:
 
 # --- A DC motor started across the line against a fan ------------------------------
 
-# Permanent-magnet DC motor (REFERENCES.md §6 form: L di/dt = V - R i - k w,
+# Permanent-magnet DC motor (Franklin, Powell & Emami-Naeini, *Feedback Control of Dynamic Systems*, ch. 2, from memory: L di/dt = V - R i - k w,
 # J dw/dt = k i - B w - T_load) with a fan load T = c w|w|. Example values.
 MV, MR, ML, MK, MJ, MB, MFAN = 12.0, 1.0, 0.5e-3, 0.05, 1e-4, 1e-5, 2e-6
 

@@ -20,7 +20,7 @@ from mna.errors import InputError, SimulationError
 REPO = Path(__file__).resolve().parent.parent
 
 # RC charge, 5 V, 1 kohm, 1 uF from rest: it reaches 4.5 V at RC*ln(10) = 2.30 ms
-# (REFERENCES.md section 1).
+# (Nilsson & Riedel, *Electric Circuits*, ch. 7).
 RC = """voltage-source V1 in -> gnd 5 V
 resistor R1 in -> out 1 kohm
 capacitor C1 out -> gnd 1 uF
@@ -161,7 +161,7 @@ def test_run_prints_the_table_writes_json_and_exits_1_on_a_failed_check(folder, 
     row = next(line for line in result.stdout.splitlines() if "< 2 ms" in line)
     assert row.split()[0] == "FAIL" and "2.30" in row
     data = json.loads((out_dir / "summary.json").read_text())
-    # RC crossing time -RC*ln(1 - 4.5/5) = RC*ln(10) (REFERENCES.md §1), to the solver's accuracy.
+    # RC crossing time -RC*ln(1 - 4.5/5) = RC*ln(10) (Nilsson & Riedel, *Electric Circuits*, ch. 7), to the solver's accuracy.
     assert data["checks"][0]["value"] == pytest.approx(1e-3 * math.log(10), rel=1e-4)
     assert [c["status"] for c in data["checks"]] == ["fail", "pass"]
     assert data["checks"][0]["limit"] == pytest.approx(2e-3)

@@ -2,11 +2,11 @@
 
 Reference: Halliday, Resnick & Walker, *Fundamentals of Physics*, chapters
 on magnetic force on a current loop and on induction (numbering varies by
-edition); REFERENCES.md §7:
+edition):
 
     e = N B A w sin(w t)      tau = N I A B sin(theta)      e i = tau w
 
-Values N = 100, B = 0.5 T, A = 0.01 m^2 are REFERENCES.md §7's; every
+Values N = 100, B = 0.5 T, A = 0.01 m^2 are an invented example; every
 expected number is computed from the formulas here.
 """
 

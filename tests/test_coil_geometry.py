@@ -1,6 +1,6 @@
 """Solenoid inductance from geometry: Nagaoka's coefficient and the solenoid kind.
 
-Sources (see /work/shared/REFERENCES.md section 5):
+Sources:
 - H. Nagaoka, "The inductance coefficients of solenoids", J. Coll. Sci.
   Imp. Univ. Tokyo 27 (1909): the closed form and its table.
 - E. B. Rosa & F. W. Grover, Bull. Bureau of Standards 8(1) (1912), and
@@ -23,7 +23,7 @@ from scipy.special import ellipe, ellipkm1
 import mna
 from mna.coil_geometry import long_solenoid_inductance, nagaoka, solenoid_inductance
 
-# Nagaoka's 1909 table, as transcribed in the project's REFERENCES.md section 5:
+# Nagaoka's 1909 table, as published (Nagaoka 1909, the coefficient table):
 # (d/l, K). The table agrees with the closed form to 1e-6 up to d/l = 3.5;
 # at d/l = 10 the table reads 0.203315 against 0.203324 computed.
 NAGAOKA_TABLE = [(0.25, 0.901649), (0.5, 0.818136), (1.0, 0.688423), (2.0, 0.525510), (5.0, 0.319825)]
@@ -36,7 +36,7 @@ def test_nagaoka_coefficient_against_the_published_table(ratio, tabulated):
 
 
 def test_nagaoka_at_a_flat_coil_against_the_table_entry():
-    # Nagaoka (1909), d/l = 10: table 0.203315. REFERENCES.md notes the table
+    # Nagaoka (1909), d/l = 10: table 0.203315; the table
     # itself is 9e-6 off the closed form there, so the bound is 1.5e-5.
     assert nagaoka(10.0) == pytest.approx(0.203315, abs=1.5e-5)
 

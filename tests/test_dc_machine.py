@@ -1,6 +1,6 @@
 """The DC machine as motor and generator, checked against its textbook model.
 
-Model (REFERENCES.md §6): the permanent-magnet DC machine of Franklin,
+Model: the permanent-magnet DC machine of Franklin,
 Powell & Emami-Naeini, *Feedback Control of Dynamic Systems*, ch. 2, and
 Nise, *Control Systems Engineering*, ch. 2 (chapters from memory):
 
@@ -9,7 +9,7 @@ Nise, *Control Systems Engineering*, ch. 2 (chapters from memory):
 Reference solutions are that two-state ODE solved by
 ``scipy.integrate.solve_ivp`` at rtol 1e-10, or the closed forms that follow
 from it (steady state, stall, the mechanical time constant). Machine values
-are REFERENCES.md §6 "case A" (12 V, 1 ohm, 0.5 mH, 0.05 V*s/rad,
+are an invented example, "case A" (12 V, 1 ohm, 0.5 mH, 0.05 V*s/rad,
 1e-4 kg*m^2, 1e-5 N*m*s/rad); every expected number is computed here.
 """
 
@@ -130,8 +130,24 @@ def test_torque_emf_and_powers_obey_the_machine_laws(start_run):
     np.testing.assert_allclose(res["p(M1)"], V * i, rtol=1e-12, atol=1e-12)
 
 
+def test_the_shaft_receives_the_reported_torque(start_run):
+    # The shaft side of the same model (Franklin/Nise ch. 2): J dw/dt + B w = T.
+    # The trapezoidal rule makes it hold exactly on every step between the
+    # samples: J (w1 - w0)/h = (T1 + T0)/2 - B (w1 + w0)/2. The first steps of
+    # the run may be backward-Euler restart steps; from the fifth sample on it
+    # holds to round-off (1e-9 of the largest torque; the residual of Newton's
+    # method is 1e-12 of the terms). A torque constant halved on the shaft side
+    # only (the reported torque still k i) breaks it by half the torque.
+    res, _ = start_run
+    w, torque, t = res["w(rotor)"], res["torque(M1)"], res.time
+    h = np.diff(t)
+    lhs = J * np.diff(w) / h + B * 0.5 * (w[1:] + w[:-1])
+    rhs = 0.5 * (torque[1:] + torque[:-1])
+    np.testing.assert_allclose(lhs[4:], rhs[4:], rtol=0, atol=1e-9 * np.max(np.abs(torque)))
+
+
 def test_no_load_speed_and_current():
-    # Steady state with T_L = 0 (REFERENCES.md §6): w = V k / (k^2 + R B),
+    # Steady state with T_L = 0 (Franklin, Powell & Emami-Naeini, *Feedback Control of Dynamic Systems*, ch. 2, from memory): w = V k / (k^2 + R B),
     # i = B V / (k^2 + R B).
     op = mna.parse(motor_text() + "record i(M1)\n").dc()
     assert op["w(rotor)"] == pytest.approx(V * K / (K**2 + R * B), rel=1e-9)
@@ -140,7 +156,7 @@ def test_no_load_speed_and_current():
 
 @pytest.mark.parametrize("direction", ["opposing", "fixed"])
 def test_running_speed_and_current_under_a_constant_load_torque(direction):
-    # Steady state (REFERENCES.md §6): w = (k V - R T_L)/(k^2 + R B),
+    # Steady state (Franklin, Powell & Emami-Naeini, *Feedback Control of Dynamic Systems*, ch. 2, from memory): w = (k V - R T_L)/(k^2 + R B),
     # i = (B V + k T_L)/(k^2 + R B). An opposing load is exactly T_L once
     # the speed is beyond its smoothing band, so both models agree.
     TL = 0.1
@@ -173,7 +189,7 @@ def test_load_step_follows_the_two_state_ode():
 
 def test_mechanical_time_constant_without_inductance():
     # With L = 0 the motor is first order: w(t) = w_ss (1 - exp(-t/tau)) with
-    # tau = R J/(k^2 + R B), which is R J / k^2 for B = 0 (REFERENCES.md §6;
+    # tau = R J/(k^2 + R B), which is R J / k^2 for B = 0 (Franklin, Powell & Emami-Naeini, *Feedback Control of Dynamic Systems*, ch. 2, from memory;
     # Nise ch. 2). Trapezoidal at h = tau/1000: error ~ (h/tau)^2/12 ~ 1e-7.
     tau = R * J / K**2
     res = mna.parse(motor_text(inductance=0.0, friction=0.0)).transient(
@@ -200,7 +216,7 @@ def test_mechanical_time_constant_with_small_inductance():
 def test_generator_into_a_resistor():
     # Driven at a set speed into R_load: E = k w drives i = k w/(R + R_load)
     # through the load, and the machine brakes the shaft with k i
-    # (REFERENCES.md §6 model; Chapman, Electric Machinery Fundamentals,
+    # (Franklin, Powell & Emami-Naeini, *Feedback Control of Dynamic Systems*, ch. 2, from memory; Chapman, Electric Machinery Fundamentals,
     # DC generators -- chapter from memory). Passive sign convention: the
     # current through the machine a -> b is negative.
     w, r_load = 3000 * 2 * math.pi / 60, 4.0
@@ -239,7 +255,7 @@ def test_motor_overdriven_becomes_a_generator():
 
 def test_locked_rotor_draws_stall_current():
     # shaft=frame locks the rotor: the stall current V/R and stall torque
-    # k V/R (REFERENCES.md §6), reached through i(t) = V/R (1 - exp(-t R/L)).
+    # k V/R (Franklin, Powell & Emami-Naeini, *Feedback Control of Dynamic Systems*, ch. 2, from memory), reached through i(t) = V/R (1 - exp(-t R/L)).
     text = (f"voltage-source V1 sup -> gnd {V} V\n"
             f"dc-machine M1 sup -> gnd shaft=frame resistance={R} ohm inductance={L} H constant={K} V*s/rad\n"
             "record i(M1), torque(M1)\n")
@@ -264,7 +280,7 @@ def test_torque_constant_and_back_emf_constant_are_one_si_number():
 def test_brush_drop_lowers_the_running_speed_and_opposes_the_current():
     # The brush drop is a constant Vb against the current once |i| exceeds
     # its band, so the steady state is the model's with V -> V - Vb:
-    # w = (k (V - Vb) - R T_L)/(k^2 + R B) (REFERENCES.md §6 formula).
+    # w = (k (V - Vb) - R T_L)/(k^2 + R B) (Franklin, Powell & Emami-Naeini, *Feedback Control of Dynamic Systems*, ch. 2, from memory).
     vb, TL = 2.0, 0.1
     text = motor_text(load=f"torque={TL} N*m", machine_extra=f"brush-drop={vb} V") + "record i(M1)\n"
     op = mna.parse(text).dc()

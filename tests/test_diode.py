@@ -1,6 +1,6 @@
 """The diode kind against closed forms.
 
-Sources (see /work/shared/REFERENCES.md section 8):
+Sources:
 - Shockley equation I = Is (exp(V/(n Vt)) - 1), e.g. Sedra & Smith,
   *Microelectronic Circuits* (from memory).
 - Vt = k T / q with the exact SI 2019 values of k and q (BIPM, *The
@@ -53,7 +53,7 @@ def test_thermal_voltage_from_the_si_constants(temperature):
 @pytest.mark.parametrize(
     "vs, r, isat, n",
     [
-        (5.0, 1e3, 1e-14, 1.0),  # REFERENCES.md section 8, first case
+        (5.0, 1e3, 1e-14, 1.0),  # Banwell & Jayakumar (2000), their closed form for 5 V, 1 kohm, Is = 1e-14 A
         (1.0, 100.0, 1e-12, 1.8),  # second case: ideality 1.8
         (12.0, 47.0, 2e-9, 1.3),  # a Schottky-like junction
     ],
@@ -96,7 +96,7 @@ def test_temperature_enters_through_the_thermal_voltage():
 
 def test_hard_forward_bias_converges_through_junction_limiting():
     # 100 V straight into a diode through 1 ohm: exp(V/nVt) overflows any
-    # float without limiting. Closed form via Wright omega (REFERENCES.md 8).
+    # float without limiting. Closed form via Wright omega (Banwell & Jayakumar, Electronics Letters 36(4):291-292 (2000)).
     c = mna.parse(
         "voltage-source V1 in -> gnd 100 V\n"
         "resistor R1 in -> x 1 ohm\n"

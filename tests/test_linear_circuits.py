@@ -1,6 +1,6 @@
 """Linear circuits against closed forms, every integration method on every problem.
 
-Reference problems are defined once (values from ../shared/REFERENCES.md §1-3)
+Reference problems are defined once (closed forms of Nilsson & Riedel, *Electric Circuits*, ch. 7-8, evaluated for invented values)
 and each is run with each method at a fixed step. Tolerances: the global
 error of a p-th order method is about C*(h/tau)^p times the signal scale
 with C of order 1 (standard numerical analysis of linear multistep methods,
@@ -51,7 +51,7 @@ def test_rl_step(method):
     t = res.time
     assert rel_err(res["i(L1)"], V / R * (1 - np.exp(-t / tau))) < bound(METHODS[method], h / tau)
     assert rel_err(res["v(x)"][1:], V * np.exp(-t[1:] / tau)) < bound(METHODS[method], h / tau)
-    # REFERENCES.md §1 check values: i(1 ms) = 0.786939 A, i(2 ms) = 1.264241 A.
+    # The RL closed form (Nilsson & Riedel, *Electric Circuits*, ch. 7) evaluated: i(1 ms) = 0.786939 A, i(2 ms) = 1.264241 A.
     assert res.at("i(L1)", 1e-3) == pytest.approx(V / R * (1 - math.exp(-1e-3 / tau)), rel=1e-2)
 
 
@@ -122,7 +122,7 @@ def test_series_rlc_step(method, R):
 
 
 def test_rlc_reference_values():
-    # REFERENCES.md §2 table: R = 10 ohm, vC(50 us) = 0.86786279 V, i(50 us) = 24.94044971 mA.
+    # The series RLC closed form (Nilsson & Riedel, *Electric Circuits*, ch. 8) evaluated: R = 10 ohm, vC(50 us) = 0.86786279 V, i(50 us) = 24.94044971 mA.
     vc, i = rlc_exact(10.0, np.array([50e-6]))
     assert vc[0] == pytest.approx(0.86786279, abs=1e-8)
     assert i[0] == pytest.approx(24.94044971e-3, abs=1e-10)
@@ -163,7 +163,7 @@ inductor L1 x -> gnd {L} H
 
 
 # --- A charged inductor dumping into a capacitor --------------------------------------
-# REFERENCES.md §3: vC = I0*Z0*sin(t/sqrt(LC)), Z0 = sqrt(L/C); the peak I0*Z0 at
+# Nilsson & Riedel, *Electric Circuits*, ch. 8: vC = I0*Z0*sin(t/sqrt(LC)), Z0 = sqrt(L/C); the peak I0*Z0 at
 # (pi/2)*sqrt(LC); energy balance 1/2 L I0^2 = 1/2 C Vpk^2. I0 = 1 A, 100 uH, 10 nF.
 
 def test_inductor_dumps_into_capacitor():

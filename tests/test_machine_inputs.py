@@ -2,7 +2,7 @@
 
 The rating-data checks simulate the datasheet tests themselves (no-load run,
 locked rotor) and compare with the numbers given, using the steady-state DC
-machine equations of REFERENCES.md §6 (Franklin/Nise ch. 2): at stall
+machine equations of Franklin, Powell & Emami-Naeini and Nise (ch. 2, from memory): at stall
 I = (V - Vb)/R and T = k I; at no load V = R I_nl + (Vb) + k w_nl.
 """
 

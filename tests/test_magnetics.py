@@ -2,7 +2,7 @@
 
 Sources:
 - Magnetically coupled circuits: Alexander & Sadiku, *Fundamentals of
-  Electric Circuits*, ch. 13 (REFERENCES.md section 4): M = k sqrt(L1 L2),
+  Electric Circuits*, ch. 13: M = k sqrt(L1 L2),
   v1 = L1 di1/dt + M di2/dt, v2 = M di1/dt + L2 di2/dt with the dots on the
   first terminals; open secondary v2/v1 = M/L1; shorted secondary input
   inductance L1 - M^2/L2; coupled inductors store energy but dissipate none.
@@ -63,7 +63,7 @@ def test_coupled_rl_loops_step_response_against_the_matrix_exponential():
         # ~ 3e-7 relative, after two backward-Euler start steps (~1e-6 A).
         assert res.at("i(L1)", t) == pytest.approx(expected[0], abs=1e-5)
         assert res.at("i(L2)", t) == pytest.approx(expected[1], abs=1e-5)
-    # REFERENCES.md section 4 lists the same case: i1(1 ms) = 2.41144273 A.
+    # The same matrix exponential evaluated once, for this case: i1(1 ms) = 2.41144273 A.
     assert res.at("i(L1)", 1e-3) == pytest.approx(2.41144273, abs=1e-5)
 
 

@@ -176,7 +176,7 @@ measure e = energy(R1)
 # --------------------------------------------------------------------------
 # overshoot and settling of a second-order step
 
-# Series RLC driven by a 1 V step, vC(0) = 0, i(0) = 0 (REFERENCES.md section 2;
+# Series RLC driven by a 1 V step, vC(0) = 0, i(0) = 0 (
 # Nilsson & Riedel ch. 8; Nise, Control Systems Engineering, ch. 4 for %OS,
 # chapter from memory).
 V, R, L, C = 1.0, 10.0, 1e-3, 1e-6
@@ -287,7 +287,7 @@ measure v_end = final(v(out))
 @pytest.mark.parametrize("level", [1.0, 2.5, 4.5])
 def test_crossing_of_an_rc_charge_on_closed_form_samples(level):
     # vC = V*(1 - exp(-t/RC)) reaches `level` at -RC*ln(1 - level/V)
-    # (REFERENCES.md section 1; Nilsson & Riedel ch. 7). Linear
+    # (Nilsson & Riedel ch. 7). Linear
     # interpolation of this concave curve puts the crossing late by at most
     # (h^2/8)*|v''|/|v'| = h^2/(8*RC).
     vs, tau, h = 5.0, 1e-3, 10e-6

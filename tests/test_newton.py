@@ -3,11 +3,11 @@
 Sources:
 - Damped Newton and continuation (leak stepping, source ramping):
   Vlach & Singhal, *Computer Methods for Circuit Analysis and Design*
-  (1994), and Chua & Lin (1975), from memory (REFERENCES.md section 9).
+  (1994), and Chua & Lin (1975), from memory.
 - Newton's method on atan diverges from |x0 - root| > 1.39 (a textbook
   example of Newton's failure; e.g. Burden & Faires, *Numerical Analysis*,
   from memory): the case damping exists for.
-- Diode with series resistor: Banwell & Jayakumar (2000), REFERENCES.md
+- Diode with series resistor: Banwell & Jayakumar (2000),
   section 8.
 
 Two test-only element kinds stand for ill-posed physics: an "offset atan"

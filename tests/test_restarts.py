@@ -258,7 +258,7 @@ def test_switch_opening_on_a_coil_gives_a_clean_decay_with_trapezoidal_steps():
     # jumps to -I0 R2 and decays with it (first-order natural response,
     # Alexander & Sadiku ch. 7). The trapezoidal rule starts right after the
     # event from the exact rates; any alternating-sign artefact
-    # (|R(z)| -> 1 for z -> -inf, REFERENCES.md §9) would show as sign flips.
+    # (|R(z)| -> 1 for z -> -inf, Hairer & Wanner, *Solving Ordinary Differential Equations II*, from memory) would show as sign flips.
     V, R1, R2, L, t0 = 10.0, 10.0, 90.0, 1e-3, 2e-3
     c = mna.parse(
         f"voltage-source V1 s -> gnd {V} V\n"

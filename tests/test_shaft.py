@@ -2,7 +2,7 @@
 
 References: rotational mechanics J dw/dt = sum of torques (Nise, *Control
 Systems Engineering*, ch. 2, rotational systems and gear trains, chapter
-from memory; REFERENCES.md §6 for the motor equations). Expected values are
+from memory; Franklin, Powell & Emami-Naeini, *Feedback Control of Dynamic Systems*, ch. 2, from memory, for the motor equations). Expected values are
 the closed-form solutions of those first-order equations, computed here.
 """
 

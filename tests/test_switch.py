@@ -1,7 +1,7 @@
 """The switch kind: gates, events, and a switch opening under an inductor current.
 
 Sources:
-- LC energy transfer and RC snubbers: REFERENCES.md section 3. An inductor
+- LC energy transfer and RC snubbers: Nilsson & Riedel, *Electric Circuits*, ch. 8. An inductor
   carrying I0 switched onto C: v = I0 Z0 sin(w0 t), Z0 = sqrt(L/C),
   w0 = 1/sqrt(LC), 1/2 L I0^2 = 1/2 C Vpk^2. With R in series with C it is a
   series RLC with i(0) = I0, vC(0) = 0 (Nilsson & Riedel, *Electric
@@ -87,7 +87,7 @@ def test_switch_opening_into_an_rc_snubber_matches_the_damped_rlc():
     before, after = k_open
     assert res["state(Q1)"][before] == 1.0 and res["state(Q1)"][after] == 0.0
     i_open = res["i(L1)"][before]
-    # The switch voltage jumps to I0 R at 0+ (REFERENCES.md section 3). The
+    # The switch voltage jumps to I0 R at 0+ (Nilsson & Riedel, *Electric Circuits*, ch. 8). The
     # engine solves the instant after an event with a backward-Euler step a
     # billionth of the step long; the inductor's row then carries L/h0 =
     # 1e14 and the solution ~1e-16 * 1e14 V of round-off: 5e-4 relative.
@@ -121,7 +121,7 @@ def test_switch_opening_into_an_rc_snubber_matches_the_damped_rlc():
 
 def test_overdamped_snubber_jumps_to_i0_r():
     # R = 200 ohm = 2 Z0: the switch voltage is largest at 0+, I0 R = 200 V
-    # (REFERENCES.md section 3), and the capacitor peaks below it.
+    # (Nilsson & Riedel, *Electric Circuits*, ch. 8), and the capacitor peaks below it.
     res = snubber_circuit(200.0).transient(until=T_OPEN + 5e-6, step=2e-9, method="trapezoidal",
                                            start="rest", record=["v(x)", "v(m)"])
     assert res["v(x)"].max() == pytest.approx(200.0, rel=1e-4)
@@ -148,7 +148,8 @@ def test_schedule_gate_states_and_corners():
     dup_first = np.r_[t[1:] == t[:-1], False]
     expect = np.where(dup_first, np.r_[1, expect[:-1]], expect)
     assert np.array_equal(closed, expect)
-    # Ohm's law in each state: 10 V over 1 + 9 ohm, or over 1 Mohm + 9 ohm.
+    # Ohm's law in each state (Nilsson & Riedel ch. 2): 10 V over 1 + 9 ohm,
+    # or over 1 Mohm + 9 ohm.
     i_expected = np.where(closed > 0, 10 / 10.0, 10 / (1e6 + 9))
     assert np.allclose(res["i(R1)"], i_expected, rtol=1e-9)
     assert np.allclose(res["i(Q1)"], i_expected, rtol=1e-9)

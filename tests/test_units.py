@@ -176,7 +176,7 @@ def test_compound_units(text: str, scale: float, dim: Dimension) -> None:
 
 def test_motor_constant_units_agree() -> None:
     # k_e in V*s/rad equals k_t in N*m/A in SI, by the power balance e*i = T*w
-    # (Franklin, Powell & Emami-Naeini ch. 2; see REFERENCES.md section 6).
+    # (Franklin, Powell & Emami-Naeini ch. 2, from memory).
     assert parse_unit("V*s/rad") == parse_unit("N*m/A")
     assert parse_unit("V*s/rad")[1] == MACHINE_CONSTANT
 

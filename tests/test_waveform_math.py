@@ -90,7 +90,8 @@ def test_rms_of_triangle_is_exact_on_a_coarse_grid_where_the_naive_rule_is_not()
     ],
 )
 def test_mean_of_pwm(low, high, duty, rise, fall):
-    # Mean of a trapezoidal pulse train, computed by hand: per period the
+    # Mean of a trapezoidal pulse train, by direct integration (common
+    # practice): per period the
     # area above `low` is (high-low)*(plateau + rise/2 + fall/2); with duty
     # measured from the start of the rise to the start of the fall
     # (plateau = duty*T - rise) the mean is
@@ -132,7 +133,7 @@ def test_mean_and_rms_of_a_ramp_in_a_window():
 
 
 # ---------------------------------------------------------------------------
-# series RLC step: overshoot and settling (REFERENCES.md section 2)
+# series RLC step: overshoot and settling (Nilsson & Riedel, *Electric Circuits*, ch. 8)
 
 
 class SeriesRLC:
@@ -187,7 +188,7 @@ class SeriesRLC:
         return brentq(beyond_band, t_peak, t_zero, xtol=1e-16, rtol=1e-15)
 
 
-# L = 1 mH, C = 1 uF from REFERENCES.md section 2; R = 10 ohm is its zeta = 0.158
+# L = 1 mH, C = 1 uF (invented values; closed form of Nilsson & Riedel, *Electric Circuits*, ch. 8); R = 10 ohm is its zeta = 0.158
 # case, 30 and 50 ohm give zeta = 0.47 and 0.79. V < 0 makes a falling step.
 RLC_CASES = [(1.0, 10.0), (1.0, 30.0), (-2.0, 50.0)]
 STEP = 20e-9  # w0*h = 6e-4: interpolation bounds below are ~1e-8 of V
@@ -196,7 +197,7 @@ STEP = 20e-9  # w0*h = 6e-4: interpolation bounds below are ~1e-8 of V
 @pytest.mark.parametrize("V, R", RLC_CASES)
 def test_overshoot_of_underdamped_second_order_step(V, R):
     # %OS = 100*exp(-zeta*pi/sqrt(1 - zeta^2)), Nise, Control Systems
-    # Engineering, ch. 4 (chapter from memory); REFERENCES.md section 2.
+    # Engineering, ch. 4 (chapter from memory); Nilsson & Riedel, *Electric Circuits*, ch. 8.
     circuit = SeriesRLC(V, R)
     t, v = circuit.sampled(STEP)
     expected = 100 * math.exp(-circuit.zeta * math.pi / math.sqrt(1 - circuit.zeta**2))
@@ -276,7 +277,7 @@ def test_settling_rejects_a_band_that_is_not_positive(band):
 @pytest.mark.parametrize("level", [1.0, 2.5, 4.5])
 def test_crossing_of_rc_charge(level):
     # vC = V(1 - exp(-t/RC)) reaches L at t = -RC ln(1 - L/V)
-    # (REFERENCES.md section 1, Nilsson & Riedel ch. 7); 4.5 V of 5 V is RC ln 10.
+    # (Nilsson & Riedel ch. 7); 4.5 V of 5 V is RC ln 10.
     V, R, C = 5.0, 1e3, 1e-6
     tau = R * C
     h = 2e-6
@@ -293,7 +294,8 @@ def test_crossing_of_rc_charge(level):
 
 @pytest.mark.parametrize("direction, twelfths", [("rising", 1), ("falling", 5), ("either", 1)])
 def test_crossing_direction_on_a_sine(direction, twelfths):
-    # A sin(wt) = A/2 at wt = pi/6 (rising) and 5pi/6 (falling), i.e. T/12 and 5T/12.
+    # A sin(wt) = A/2 at wt = pi/6 (rising) and 5pi/6 (falling), i.e. T/12 and
+    # 5T/12 (sin(pi/6) = 1/2, any trigonometry table).
     amplitude, period = 1.0, 1e-3
     w = 2 * math.pi / period
     t = np.linspace(0, period, 2001)

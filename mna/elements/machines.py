@@ -9,7 +9,7 @@ through the same pair of laws, so that the electrical power converted,
 with ``K`` the machine constant (V*s/rad, which in SI is the same number as
 the torque constant in N*m/A) for a permanent-magnet DC machine, and
 ``K = N*B*A*sin(angle)`` for a single coil turning in a uniform field.
-Models: REFERENCES.md §6 (DC machine; Franklin, Powell & Emami-Naeini ch. 2,
+Models: (DC machine; Franklin, Powell & Emami-Naeini ch. 2,
 Nise ch. 2) and §7 (coil in a field; Halliday, Resnick & Walker).
 
 Sign conventions (the passive convention of every two-terminal element):
@@ -87,7 +87,7 @@ def rating_constants(
 ) -> tuple[float, float]:
     """Armature resistance R (ohm) and machine constant k (V*s/rad) from rating data.
 
-    From the steady-state equations of the DC machine (REFERENCES.md §6),
+    From the steady-state equations of the DC machine (Franklin, Powell & Emami-Naeini, *Feedback Control of Dynamic Systems*, ch. 2, from memory),
     ``V = R*i + Vb + k*w`` and ``T = k*i``, at the rated voltage V (V), with
     ``V' = V - Vb`` where ``Vb`` is the brush drop:
 
@@ -181,7 +181,7 @@ class DCMachine(Element):
     """``dc-machine M1 a -> b shaft=rotor resistance=0.8 ohm inductance=1.2 mH constant=0.05 V*s/rad``.
 
     A permanent-magnet (or separately excited, constant-field) DC machine,
-    the same element as motor and as generator (REFERENCES.md §6):
+    the same element as motor and as generator (Franklin, Powell & Emami-Naeini, *Feedback Control of Dynamic Systems*, ch. 2, from memory):
 
         v(a) - v(b) = R*i + L di/dt + Vb*s(i/band) + k*w      (armature)
         torque on the shaft = k*i                            (shaft)
@@ -358,7 +358,7 @@ class CoilGenerator(Element):
     """``coil-generator G1 a -> b shaft=rotor turns=200 field=0.5 T area=40 cm^2``.
 
     A single rectangular (or any flat) coil of N turns and area A turning
-    on the shaft in a uniform field B (REFERENCES.md §7; Halliday, Resnick
+    on the shaft in a uniform field B (Halliday, Resnick
     & Walker). With ``angle`` measured from the position where the coil's
     plane is square to the field (flux linkage ``N*B*A*cos(angle)``, EMF
     zero):

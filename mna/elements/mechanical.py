@@ -3,7 +3,7 @@
 A shaft node carries the angular speed ``w`` (rad/s) as its potential and
 torque (N*m) as its flow; ``frame`` is the stationary reference. The
 equations are the electrical ones with the analogy speed <-> voltage,
-torque <-> current (REFERENCES.md §6):
+torque <-> current (Franklin, Powell & Emami-Naeini, *Feedback Control of Dynamic Systems*, ch. 2, from memory):
 
 - ``inertia``: ``J dw/dt`` flows from the shaft to the frame -- a
   capacitance ``J`` to frame (kinetic energy ``J w^2 / 2``);
