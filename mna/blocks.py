@@ -300,7 +300,22 @@ def _read(path: Path, st: nl.BlocksFromStatement) -> nl.Netlist:
 def expand(el: "Elaborator", block: BlockDefinition, st: nl.ElementStatement) -> None:
     """Add the elements of one use of ``block`` to the circuit, named ``NAME.x``."""
     outer = el.scope
-    kinds = outer.kinds if outer else ()
+    scope, given = _open_instance(el, block, st)
+    el.scope = scope
+    try:
+        _place_body(el, block, scope, given)
+    except InputError as exc:
+        _explain_scope(exc, block)
+        raise exc.inside(f"{st.kind} {scope.prefix[:-1]}", st.kind_span) from None
+    finally:
+        el.scope = outer
+    for name in block.parameters:
+        el.circuit.block_parameters[scope.prefix + name] = scope.params[name]
+
+
+def _open_instance(el: "Elaborator", block: BlockDefinition, st: nl.ElementStatement) -> tuple[Scope, dict]:
+    """Check a use (nesting, terminals, arguments, name) and give the instance's scope."""
+    kinds = el.scope.kinds if el.scope else ()
     if block.keyword in kinds:
         loop = " -> ".join(kinds[kinds.index(block.keyword):] + (block.keyword,))
         raise InputError(f"block {block.keyword} uses itself ({loop})", st.kind_span)
@@ -310,39 +325,34 @@ def expand(el: "Elaborator", block: BlockDefinition, st: nl.ElementStatement) ->
     nodes, given, spans = el.bind(block, st)
     instance = el.element_name(st.name)
     _check_terminal_domains(el, block, st, nodes, spans)
-    scope = Scope(instance + ".", {n: nodes[n] for p in block.ports for n in p.names},
-                  kinds=kinds + (block.keyword,))
-    instances = el.circuit.__dict__.setdefault("block_instances", {})
+    instances = el.circuit.block_instances
     if instance in el.circuit.elements or instance in instances:
         first = instances.get(instance) or el.circuit.elements[instance].span
         where = f" (first defined at {first.where()})" if first else ""
         raise InputError(f"duplicate element name {instance!r}{where}", st.name_span)
     instances[instance] = st.name_span
-    scope.written = {a.key: a.value for a in st.arguments}
-    el.scope = scope
-    try:
-        for param in block.parameters.values():
-            if isinstance(param.default, Quantity):  # a block built in Python
-                scope.params[param.name] = _python_parameter(el, param, given, scope)
-        for item in block.body:
-            if isinstance(item, nl.ParameterStatement):
-                scope.params[item.name] = _parameter_value(el, block, item, given, scope)
-                scope.written.setdefault(item.name, item.value)
-            elif isinstance(item, nl.LetStatement):
-                scope.params[item.name] = evaluate(_rewrite(item.value, scope.params, None, scope.written),
-                                                   scope.params)
-                scope.written[item.name] = item.value
-            elif isinstance(item, nl.ElementStatement):
-                el.place(_rewrite_statement(item, scope))
-            else:
-                item.place(el, scope)  # a PythonElement
-    except InputError as exc:
-        _explain_scope(exc, block)
-        raise exc.inside(f"{st.kind} {instance}", st.kind_span) from None
-    finally:
-        el.scope = outer
-    for name in block.parameters:
-        el.circuit.block_parameters[scope.prefix + name] = scope.params[name]
+    scope = Scope(instance + ".", {n: nodes[n] for p in block.ports for n in p.names},
+                  kinds=kinds + (block.keyword,), written={a.key: a.value for a in st.arguments})
+    return scope, given
+
+
+def _place_body(el: "Elaborator", block: BlockDefinition, scope: Scope, given: dict[str, Any]) -> None:
+    """Set the instance's parameters and place its elements, in the body's order."""
+    for param in block.parameters.values():
+        if isinstance(param.default, Quantity):  # a block built in Python
+            scope.params[param.name] = _parameter_value(el, param, given, scope)
+    for item in block.body:
+        if isinstance(item, nl.ParameterStatement):
+            scope.params[item.name] = _parameter_value(el, block.parameters[item.name], given, scope)
+            scope.written.setdefault(item.name, item.value)
+        elif isinstance(item, nl.LetStatement):
+            scope.params[item.name] = evaluate(_rewrite(item.value, scope.params, None, scope.written),
+                                               scope.params)
+            scope.written[item.name] = item.value
+        elif isinstance(item, nl.ElementStatement):
+            el.place(_rewrite_statement(item, scope))
+        else:
+            item.place(el, scope)  # a PythonElement
 
 
 def _explain_scope(exc: InputError, block: BlockDefinition) -> None:
@@ -353,40 +363,26 @@ def _explain_scope(exc: InputError, block: BlockDefinition) -> None:
         exc.args = (exc.render(),)
 
 
-def _parameter_value(el, block: BlockDefinition, item: nl.ParameterStatement, given: dict[str, Any],
-                     scope: Scope) -> Quantity:
+def _parameter_value(el, param: BlockParameter, given: dict[str, Any], scope: Scope) -> Quantity:
     """A parameter's value in one instance: override, else the use's value, else the default."""
-    dim = block.parameters[item.name].dimension
-    override = el.circuit.block_overrides.get(scope.prefix + item.name)
-    if isinstance(override, float):  # an SI number given from Python
-        override = Quantity(override, dim)
+    name, dim = scope.prefix + param.name, param.dimension
+    override = el.circuit.block_overrides.get(name)
+    if isinstance(override, (int, float)):  # an SI number given from Python
+        override = Quantity(float(override), dim)
     if override is not None:
         if override.dim != dim:
-            raise UnitsError(f"the override of {scope.prefix + item.name} needs {describe(dim)}, "
-                             f"got {describe(override.dim)}", item.span)
-        return override
-    value = given.get(item.name, DEFERRED)
-    if value is not DEFERRED:
-        return Quantity(value, dim)
-    q = evaluate(_rewrite(item.value, scope.params, None), scope.params)
-    if q.dim != dim:  # a default computed from other parameters, which a use changed
-        raise UnitsError(f"the default of {item.name} needs {describe(dim)}, got {describe(q.dim)}", item.span)
-    return q
-
-
-def _python_parameter(el, param: BlockParameter, given: dict[str, Any], scope: Scope) -> Quantity:
-    override = el.circuit.block_overrides.get(scope.prefix + param.name)
-    if isinstance(override, (int, float)):  # an SI number given from Python
-        override = Quantity(float(override), param.dimension)
-    if isinstance(override, float):  # an SI number given from Python
-        override = Quantity(override, param.dimension)
-    if override is not None:
-        if override.dim != param.dimension:
-            raise UnitsError(f"the override of {scope.prefix + param.name} needs {describe(param.dimension)}, "
-                             f"got {describe(override.dim)}")
+            raise UnitsError(f"the override of {name} needs {describe(dim)}, got {describe(override.dim)}",
+                             param.span)
         return override
     value = given.get(param.name, DEFERRED)
-    return param.default if value is DEFERRED else Quantity(value, param.dimension)
+    if value is not DEFERRED:
+        return Quantity(value, dim)
+    if isinstance(param.default, Quantity):
+        return param.default
+    q = evaluate(_rewrite(param.default, scope.params, None), scope.params)
+    if q.dim != dim:  # a default computed from other parameters, which a use changed
+        raise UnitsError(f"the default of {param.name} needs {describe(dim)}, got {describe(q.dim)}", param.span)
+    return q
 
 
 def _check_terminal_domains(el, block: BlockDefinition, st, nodes: dict[str, Any], spans: dict[str, Span]) -> None:

@@ -596,6 +596,8 @@ class Circuit:
         self.blocks: dict[str, Any] = {}
         #: The parameters of every block instance, by hierarchical name (``S1.resistance``).
         self.block_parameters: dict[str, Quantity] = {}
+        #: Every block instance placed, by hierarchical name -> the span of its use.
+        self.block_instances: dict[str, Span | None] = {}
         #: Values that replace block parameters when instances are expanded (``S1.resistance``).
         self.block_overrides: dict[str, Quantity] = {}
         self._elaborator = Elaborator(self)
