@@ -120,7 +120,7 @@ def run_one(variant: Variant, plan: RunPlan) -> RunRecord:
         if outcome.failure is not None:
             where = outcome.failure.time
             record.status = "simulation"
-            record.message = (f"simulation failed{f' at t = {where:.6g} s' if where is not None else ''}: "
+            record.message = (f"{f'at t = {where:.6g} s: ' if where is not None else ''}"
                               f"{outcome.failure.message}")
         else:
             record.status = {0: "ok", 1: "failed", 2: "input"}[outcome.report.exit_code]

@@ -160,6 +160,50 @@ def test_a_failing_run_in_the_middle_keeps_the_others():
     assert result.summary.failures[0][:2] == (1, "input")
 
 
+def test_a_run_whose_simulation_fails_keeps_the_others():
+    text = """\
+let Tmin = 1 ns
+voltage-source V1 in -> gnd step(from=0 V, to=1 V, at=0.1 ms)
+resistor R1 in -> out 1 kohm
+capacitor C1 out -> gnd 10 nF
+simulate transient until=1 ms min-step=Tmin
+measure v_end = final(v(out))
+check v_end > 0.9 V
+"""
+    # A 0.2 ms smallest step cannot follow the 10 us time constant after the step at 0.1 ms.
+    result = studies.sweep(text, {"Tmin": ["1 ns", "0.2 ms", "2 ns"]}, jobs=1)
+    table = result.table
+    assert list(table["status"]) == ["ok", "simulation", "ok"]
+    assert "min-step" in table.messages[1]
+    # RC charging: 1 - exp(-0.9 ms / 10 us) is 1 V to within 1e-39.
+    assert table["v_end"][[0, 2]] == pytest.approx([1.0, 1.0], abs=1e-3)
+    assert result.summary.failures[0][:2] == (1, "simulation")
+    assert result.summary.failures[0][3] == {"Tmin": pytest.approx(2e-4)}
+
+
+def test_progress_lines_in_a_log_and_on_a_terminal():
+    import io
+
+    from mna.runner import RunRecord
+    from mna.study_report import StudyProgress
+
+    clock = iter(np.arange(0.0, 100.0, 1.5))
+    log = io.StringIO()
+    progress = StudyProgress(log, 20, live=False, clock=lambda: next(clock))
+    for k in range(20):
+        progress.run_done(RunRecord(k, "ok" if k % 5 else "simulation"))
+    lines = log.getvalue().splitlines()
+    assert "\x1b" not in log.getvalue() and "\r" not in log.getvalue()
+    assert lines[-1].strip().startswith("runs: 20 of 20 done, 4 not passed")
+    assert 2 <= len(lines) <= 11  # about every tenth of the runs, at most one line per 2 s
+    assert "left" in lines[0]
+    tty = io.StringIO()
+    live = StudyProgress(tty, 4, live=True, clock=lambda: 1.0)
+    live.run_done(RunRecord(0, "ok"))
+    live.finish()
+    assert tty.getvalue().startswith("\r\x1b[K  runs: 1 of 4 done") and tty.getvalue().endswith("\r\x1b[K")
+
+
 MC = DIVIDER + "spread R2 normal 5 % clip=15 %\nspread Vin uniform 1 V\nmonte-carlo runs=12 seed=99\n"
 
 
