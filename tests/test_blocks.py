@@ -411,7 +411,7 @@ def test_a_block_built_in_python_equals_the_netlist_block():
     snubber.add("capacitor", "C", "mid", "b", "capacitance")
     py = mna.Circuit("py")
     py.define(snubber)
-    py.add("voltage-source", "V1", "in", "gnd", "step(from=0 V, to=10 V, at=0 s)" and 10)
+    py.add("voltage-source", "V1", "in", "gnd", 10)
     py.add("resistor", "R1", "in", "sw", "100 ohm")
     py.add("inductor", "L1", "sw", "gnd", "1 mH")
     py.add("rc-snubber", "S1", "sw", "gnd", resistance="22 ohm")
