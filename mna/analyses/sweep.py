@@ -43,8 +43,8 @@ from __future__ import annotations
 
 import itertools
 import math
-from dataclasses import dataclass, field, replace
-from typing import Any, Iterable, Mapping, Sequence
+from dataclasses import dataclass, replace
+from typing import Any, Mapping, Sequence
 
 import numpy as np
 
@@ -560,116 +560,152 @@ def build_study(netlist: nl.Netlist) -> Study:
     from ..circuit import elaborate
 
     as_written = elaborate(netlist)  # the file as written must be valid before anything is varied
+    lines = _study_lines(netlist)
+    original = _parameter_values(netlist)
     blocks = as_written.block_parameters
-    sweeps = [st for st in netlist.statements if isinstance(st, nl.SweepStatement)]
-    spread_lines = [st for st in netlist.statements if isinstance(st, nl.SpreadStatement)]
-    mc = [st for st in netlist.statements if isinstance(st, nl.MonteCarloStatement)]
-    corners = [st for st in netlist.statements if isinstance(st, nl.CornersStatement)]
-    yields = [st for st in netlist.statements if isinstance(st, nl.YieldStatement)]
-    for group, word in ((mc, "monte-carlo"), (corners, "corners"), (yields, "required-yield")):
-        if len(group) > 1:
-            raise InputError(f"only one {word} line per file", group[1].span)
+    spreads, dims = _spreads(netlist, lines[nl.SpreadStatement], original, blocks)
+    in_blocks = [sp for sp in spreads if sp.label in blocks]
+    rewritten, spread_params = rewrite_spreads(netlist, [sp for sp in spreads if sp not in in_blocks], dims)
+    spread_params.update({sp.label: sp.label for sp in in_blocks})
+    grid = _grid(lines[nl.SweepStatement], original, blocks, spread_params)
+    for name in grid.nominal_of:  # swept and spread: the sweep sets the nominal the spread varies around
+        rewritten = _split_nominal(rewritten, name)
+    variables = grid.variables + [Variable(sp.label, spread_params[sp.label], dims[sp.label], "spread")
+                                  for sp in spreads]
+    mode, seed, samples = _samples(lines, spreads, original)
+    total = len(grid.points) * len(samples)
+    if total > MAX_RUNS:
+        first = (lines[nl.SweepStatement] + lines[nl.MonteCarloStatement] + lines[nl.CornersStatement])[0]
+        raise InputError(f"the file asks for {total} runs; at most {MAX_RUNS} are allowed in one study", first.span)
+    plans = []
+    for point in grid.points:
+        for k, deviations in enumerate(samples):
+            overrides = dict(point)
+            for sp, d in zip(spreads, deviations or ()):
+                overrides.update(sp.overrides(d))
+            plans.append(RunPlan(len(plans), overrides, None if deviations is None else k))
+    return Study(rewritten, variables, spreads, plans, mode, seed, _required_yield(lines, original), grid.shape,
+                 grid.scales, grid.labels, elaborate(rewritten))
+
+
+def _study_lines(netlist: nl.Netlist) -> dict[type, list]:
+    """The study statements by kind, with the rules on how they combine checked."""
+    lines: dict[type, list] = {kind: [st for st in netlist.statements if isinstance(st, kind)]
+                               for kind in STUDY_STATEMENTS}
+    mc, corners, spreads = lines[nl.MonteCarloStatement], lines[nl.CornersStatement], lines[nl.SpreadStatement]
+    for kind, word in ((nl.MonteCarloStatement, "monte-carlo"), (nl.CornersStatement, "corners"),
+                       (nl.YieldStatement, "required-yield")):
+        if len(lines[kind]) > 1:
+            raise InputError(f"only one {word} line per file", lines[kind][1].span)
     if mc and corners:
         raise InputError("a file runs either monte-carlo or corners, not both", corners[0].span,
                          hint="keep the spreads and put the other in a copy of the file")
-    if spread_lines and not (mc or corners):
+    if spreads and not (mc or corners):
         raise InputError("spread lines need a 'monte-carlo runs=N seed=S' line or a 'corners' line "
-                         "to say how to use them", spread_lines[0].span)
-    if (mc or corners) and not spread_lines:
-        st = (mc or corners)[0]
-        raise InputError(f"{'monte-carlo' if mc else 'corners'} needs at least one spread line", st.span,
-                         hint="spread C1 uniform 10 %")
-
-    original = _parameter_values(netlist)
+                         "to say how to use them", spreads[0].span)
+    if (mc or corners) and not spreads:
+        raise InputError(f"{'monte-carlo' if mc else 'corners'} needs at least one spread line",
+                         (mc or corners)[0].span, hint="spread C1 uniform 10 %")
     labels: dict[str, nl.SpreadStatement] = {}
-    for st in spread_lines:
+    for st in spreads:
         first = labels.setdefault(st.target.label, st)
         if first is not st:
             raise InputError(f"{st.target.label} has two spread lines (the first at line {first.span.line})",
                              st.target.span)
-    def in_block(t: nl.SpreadTarget) -> bool:
-        return t.argument is None and t.name in blocks
+    return lines
 
-    dims = {st.target.label: blocks[st.target.name].dim if in_block(st.target)
-            else _target_dimension(netlist, st.target, original) for st in spread_lines}
-    spreads = [_spread(st, original, dims[st.target.label]) for st in spread_lines]
-    rewritten, spread_params = rewrite_spreads(netlist, [sp for sp in spreads if not in_block(sp.target)], dims)
-    spread_params.update({sp.label: sp.label for sp in spreads if in_block(sp.target)})
-    variables: list[Variable] = []
+
+def _spreads(netlist: nl.Netlist, lines: Sequence[nl.SpreadStatement], original: Mapping[str, Quantity],
+             blocks: Mapping[str, Quantity]) -> tuple[list[Spread], dict[str, Dimension]]:
+    """The spreads in SI and each target's unit (a block parameter's, or its value's in the file)."""
+    dims = {st.target.label: blocks[st.target.name].dim if st.target.argument is None and st.target.name in blocks
+            else _target_dimension(netlist, st.target, original) for st in lines}
+    return [_spread(st, original, dims[st.target.label]) for st in lines], dims
+
+
+@dataclass
+class _Grid:
+    """The sweep lines as a grid: one dict of parameter values per point, first line slowest."""
+
+    points: list[dict[str, float]]
+    variables: list[Variable]
+    shape: tuple[int, ...]
+    scales: tuple[str, ...]
+    labels: tuple[tuple[str, ...], ...]
+    nominal_of: list[str]  # parameters both swept and spread
+
+
+def _grid(sweeps: Sequence[nl.SweepStatement], original: Mapping[str, Quantity], blocks: Mapping[str, Quantity],
+          spread_params: Mapping[str, str]) -> _Grid:
     axes: list[list[dict[str, float]]] = []
-    shape, scales = [], []
-    axis_labels: list[tuple[str, ...]] = []
-    seen: dict[str, Span] = {}
+    grid = _Grid([], [], (), (), (), [])
+    seen: set[str] = set()
     for st in sweeps:
         columns: list[tuple[str, list[float]]] = []
         for axis in st.axes:
-            if axis.name in seen:
-                raise InputError(f"{axis.name} is swept twice", axis.span)
-            seen[axis.name] = axis.span
-            if axis.name in blocks and axis.name in spread_params:
-                raise InputError(f"{axis.name} is a block parameter with a spread line; sweep a let parameter "
-                                 "that sets it instead", axis.span)
-            if axis.name not in original and axis.name not in blocks:
-                import difflib
-
-                close = difflib.get_close_matches(axis.name, [p for p in original if "~" not in p], n=1)
-                raise UnknownNameError(f"sweep: no parameter named {axis.name!r}", axis.span,
-                                       hint=f"did you mean {close[0]!r}?" if close else
-                                       "sweeps set let parameters; add 'let NAME = VALUE' and use it")
-            spread_too = spread_params.get(axis.name) == axis.name
-            parameter = axis.name + "~nominal" if spread_too else axis.name
-            dim = (original[axis.name] if axis.name in original else blocks[axis.name]).dim
+            parameter, dim = _swept_parameter(axis, original, blocks, spread_params, seen)
             vals, scale = axis_values(axis, original, dim)
             if columns and len(vals) != len(columns[0][1]):
                 raise InputError(f"sweep: {axis.name} has {_values(len(vals))} but {st.axes[0].name} has "
                                  f"{_values(len(columns[0][1]))}; names joined by 'and' step together",
                                  axis.span)
             columns.append((parameter, vals))
-            label = f"nominal({axis.name})" if spread_too else axis.name
-            variables.append(Variable(label, parameter, dim, "sweep"))
-            if spread_too:  # swept and spread: the sweep sets the nominal the spread varies around
-                rewritten = _split_nominal(rewritten, axis.name)
-        axes.append([{p: v[i] for p, v in columns} for i in range(len(columns[0][1]))])
-        axis_labels.append(tuple(v.label for v in variables[len(variables) - len(columns):]))
-        shape.append(len(columns[0][1]))
-        scales.append(scale)
-    for sp in spreads:
-        variables.append(Variable(sp.label, spread_params[sp.label], dims[sp.label], "spread"))
+            nominal = parameter != axis.name
+            grid.variables.append(Variable(f"nominal({axis.name})" if nominal else axis.name, parameter, dim,
+                                           "sweep"))
+            if nominal:
+                grid.nominal_of.append(axis.name)
+        count = len(columns[0][1])
+        axes.append([{p: v[i] for p, v in columns} for i in range(count)])
+        grid.labels += (tuple(v.label for v in grid.variables[-len(columns):]),)
+        grid.shape += (count,)
+        grid.scales += (scale,)
+    grid.points = [dict(itertools.chain.from_iterable(d.items() for d in combo)) for combo in itertools.product(*axes)]
+    return grid
 
-    points = [dict(itertools.chain.from_iterable(d.items() for d in combo)) for combo in itertools.product(*axes)]
-    required = 1.0
-    if yields:
-        q = evaluate(yields[0].value, original)
-        if not q.dim.is_dimensionless or not 0.0 < q.value <= 1.0:
-            raise InputError(f"required-yield needs a share of the runs above 0 % and up to 100 %, got {q}",
-                             yields[0].value.span)
-        required = q.value
 
-    seed = None
-    if mc:
-        runs, seed = _settings(mc[0], original)
-        samples = monte_carlo_deviations(spreads, runs, seed)
-        mode = "monte-carlo"
-    elif corners:
-        samples = corner_deviations(spreads, corners[0])
-        mode = "corners"
-    else:
-        samples = [None]
-        mode = "sweep"
-    total = len(points) * len(samples)
-    if total > MAX_RUNS:
-        raise InputError(f"the file asks for {total} runs; at most {MAX_RUNS} are allowed in one study",
-                         (sweeps or mc or corners)[0].span)
-    plans = []
-    for point in points:
-        for k, deviations in enumerate(samples):
-            overrides = dict(point)
-            if deviations is not None:
-                for sp, d in zip(spreads, deviations):
-                    overrides.update(sp.overrides(d))
-            plans.append(RunPlan(len(plans), overrides, None if deviations is None else k))
-    return Study(rewritten, variables, spreads, plans, mode, seed, required, tuple(shape), tuple(scales),
-                 tuple(axis_labels), elaborate(rewritten))
+def _swept_parameter(axis: nl.SweepAxis, original: Mapping[str, Quantity], blocks: Mapping[str, Quantity],
+                     spread_params: Mapping[str, str], seen: set[str]) -> tuple[str, Dimension]:
+    """The parameter a sweep axis sets (``P~nominal`` when P is also spread) and its unit."""
+    if axis.name in seen:
+        raise InputError(f"{axis.name} is swept twice", axis.span)
+    seen.add(axis.name)
+    if axis.name in blocks:
+        if axis.name in spread_params:
+            raise InputError(f"{axis.name} is a block parameter with a spread line; sweep a let parameter "
+                             "that sets it instead", axis.span)
+        return axis.name, blocks[axis.name].dim
+    if axis.name not in original:
+        import difflib
+
+        close = difflib.get_close_matches(axis.name, [p for p in original if "~" not in p], n=1)
+        raise UnknownNameError(f"sweep: no parameter named {axis.name!r}", axis.span,
+                               hint=f"did you mean {close[0]!r}?" if close else
+                               "sweeps set let parameters; add 'let NAME = VALUE' and use it")
+    spread_too = spread_params.get(axis.name) == axis.name
+    return (axis.name + "~nominal" if spread_too else axis.name), original[axis.name].dim
+
+
+def _samples(lines: Mapping[type, list], spreads: Sequence[Spread],
+             original: Mapping[str, Quantity]) -> tuple[str, int | None, list[list[float] | None]]:
+    """The mode, the seed and each sample's deviations (one ``None`` sample for a plain sweep)."""
+    if lines[nl.MonteCarloStatement]:
+        runs, seed = _settings(lines[nl.MonteCarloStatement][0], original)
+        return "monte-carlo", seed, monte_carlo_deviations(spreads, runs, seed)
+    if lines[nl.CornersStatement]:
+        return "corners", None, corner_deviations(spreads, lines[nl.CornersStatement][0])
+    return "sweep", None, [None]
+
+
+def _required_yield(lines: Mapping[type, list], original: Mapping[str, Quantity]) -> float:
+    if not lines[nl.YieldStatement]:
+        return 1.0
+    st = lines[nl.YieldStatement][0]
+    q = evaluate(st.value, original)
+    if not q.dim.is_dimensionless or not 0.0 < q.value <= 1.0:
+        raise InputError(f"required-yield needs a share of the runs above 0 % and up to 100 %, got {q}",
+                         st.value.span)
+    return q.value
 
 
 def _values(n: int) -> str:
@@ -730,14 +766,3 @@ def corner_deviations(spreads: Sequence[Spread], st: nl.CornersStatement) -> lis
         limits = dict(zip(chosen, combo))
         out.append([sp.limits()[limits[sp.label]] if sp.label in limits else 0.0 for sp in spreads])
     return out
-
-
-def load_study(path_or_text: str, file: str | None = None) -> Study:
-    """Parse a file (a path, or netlist text with ``file`` for messages) into a :class:`Study`."""
-    from pathlib import Path
-
-    if file is None and "\n" not in path_or_text and Path(path_or_text).is_file():
-        netlist = nl.parse_file(path_or_text)
-    else:
-        netlist = nl.parse_netlist(path_or_text, file)
-    return build_study(netlist)
