@@ -18,17 +18,20 @@ their results.
 How a spread reaches a value. The netlist is rewritten once, so that
 every spread target reads a parameter of its own:
 
-- a ``let`` parameter P becomes ``let P = (its expression) * P~factor + P~offset``;
+- a ``let`` parameter P becomes ``let P = (its expression) * P~factor``
+  (a spread in %) or ``+ P~offset`` (a spread in P's unit);
 - an element value (``spread C1``, ``spread resistance(L1)``) reads a new
   parameter named by the label, ``C1~``, defined just before the element as
-  ``(its expression) * C1~factor + C1~offset``.
+  ``(its expression) * C1~factor`` (or ``+ C1~offset``).
 
 ``~`` cannot appear in a name written in a file, so these never clash with
-the file's own names. A run sets ``~factor`` to ``1 + d`` (a spread in %)
-or ``~offset`` to ``d`` (a spread in the target's unit), so the nominal is
-whatever the file (and the run's swept values) make it. Every run is then
-one :meth:`Study.circuit_for` of parameter overrides: a new circuit,
-elaborated from the rewritten netlist, every value re-evaluated and checked.
+the file's own names. A run sets ``~factor`` to ``1 + d`` or ``~offset``
+to ``d``, so the nominal is whatever the file (and the run's swept values)
+make it. Each run is then one :func:`circuit_for`: the nominal circuit of
+the rewritten netlist with the run's values given to
+:meth:`~mna.circuit.Circuit.with_parameters`, every value re-evaluated and
+checked. A block parameter (``S1.capacitance``) is set through the same
+call by its hierarchical name.
 
 Random draws are made here, in the calling process, before any run starts:
 Monte Carlo sample k draws from its own stream, ``SeedSequence(seed).spawn``
