@@ -34,11 +34,11 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any, Iterable
 
 from . import netlist as nl
-from .elements.base import ELECTRICAL, REFERENCE, SHAFT, THERMAL, Arg, Port
+from .elements.base import ELECTRICAL, REFERENCE, REQUIRED, SHAFT, THERMAL, Arg, Port
 from .elements.registry import lookup
 from .errors import InputError, NetlistSyntaxError, Span, UnitsError, UnknownNameError
 from .expressions import evaluate, is_quantity_call
-from .units import ANGULAR_SPEED, Dimension, Quantity, describe
+from .units import ANGULAR_SPEED, Dimension, Quantity, UnitError, describe, parse_quantity
 
 if TYPE_CHECKING:  # pragma: no cover
     from .circuit import Elaborator
@@ -74,7 +74,8 @@ class BlockParameter:
         from .circuit import _is_hertz
 
         angular = self.dimension == ANGULAR_SPEED and not _is_hertz(self.text)
-        return Arg(self.name, self.dimension, default=DEFERRED, angular=angular)
+        return Arg(self.name, self.dimension, default=DEFERRED if self.default is not None else REQUIRED,
+                   angular=angular)
 
 
 @dataclass
@@ -149,7 +150,10 @@ def define(st: nl.BlockStatement) -> BlockDefinition:
     for item in st.body:
         if isinstance(item, nl.ParameterStatement):
             _check_parameter_name(item, st.kind, params, scope, terminals)
-            q = evaluate(_rewrite(item.value, scope, None), scope)
+            if item.value is None:  # required: a stand-in of its unit for the defaults below
+                q = Quantity(1.0, _unit_dimension(item))
+            else:
+                q = evaluate(_rewrite(item.value, scope, None), scope)
             params[item.name] = BlockParameter(item.name, item.value, q.dim, item.span, _default_text(item))
             scope[item.name] = q
         elif isinstance(item, nl.LetStatement):
@@ -165,8 +169,21 @@ def define(st: nl.BlockStatement) -> BlockDefinition:
     return BlockDefinition(st.kind, ports, params, st.body, st.span, st.file)
 
 
+def _unit_dimension(item: nl.ParameterStatement) -> Dimension:
+    """The dimension of ``parameter NAME in UNIT``."""
+    if item.unit == "1":
+        return Quantity(1.0).dim
+    try:
+        return parse_quantity(f"1 {item.unit}").dim
+    except UnitError as exc:
+        raise UnitsError(f"{item.unit!r} is not a unit: {exc}", item.unit_span,
+                         hint="write the unit alone, like ohm, V*s/rad or kg*m^2 (1 for a plain number)") from None
+
+
 def _default_text(item: nl.ParameterStatement) -> str:
     """``parameter r = 10 kohm   # bleed`` -> ``10 kohm`` (for listings)."""
+    if item.value is None:
+        return item.unit or ""
     line = item.span.source_line or ""
     text = line.split("=", 1)[1] if "=" in line else ""
     return text.split("#", 1)[0].strip()
@@ -487,8 +504,8 @@ def describe_block(block: BlockDefinition) -> Iterable[str]:
         ports.append(text if port.domain == ELECTRICAL else f"{port.domain} {text}")
     yield f"{block.keyword} NAME {' '.join(ports)}    (block, {block.where()})"
     for p in block.parameters.values():
-        text = p.text or str(p.default)
-        yield f"    {p.name}=  {describe(p.dimension)}; default {text}"
+        text = "required" if p.default is None else f"default {p.text or p.default}"
+        yield f"    {p.name}=  {describe(p.dimension)}; {text}"
 
 
 # --------------------------------------------------------------------------

@@ -221,11 +221,17 @@ class BlockPort:
 
 @dataclass(slots=True)
 class ParameterStatement:
-    """``parameter NAME = DEFAULT`` inside a block: a value its use may set."""
+    """``parameter NAME = DEFAULT`` inside a block: a value its use may set.
+
+    ``parameter NAME in UNIT`` has no default (``value`` is None): every
+    use must give it, in ``unit``.
+    """
 
     name: str
-    value: Expr
+    value: Expr | None
     span: Span
+    unit: str | None = None
+    unit_span: Span | None = None
 
 
 @dataclass(slots=True)
@@ -541,6 +547,10 @@ class _Builder(Transformer):
     def parameter_stmt(self, children):
         name, value = children
         return ParameterStatement(str(name), value, self.span(name))
+
+    def required_parameter(self, children):
+        name, unit = children
+        return ParameterStatement(str(name), None, self.span(name), unit=str(unit), unit_span=self.span(unit))
 
     def blocks_from_stmt(self, children):
         (path,) = children

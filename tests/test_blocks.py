@@ -535,3 +535,26 @@ def test_blocks_nested_past_the_depth_limit_are_an_input_error():
         mna.parse(text)
     ok = "".join(levels[:MAX_DEPTH]) + f"b{MAX_DEPTH - 1} Top x -> gnd\n"
     assert len(mna.parse(ok).elements) == 1
+
+
+REQUIRED = """\
+block valve a -> b
+    parameter coil-resistance in ohm         # no default: every use gives it
+    parameter tau = 2 ms
+    parameter coil-inductance = coil-resistance * tau
+    inductor L a -> b  inductance=coil-inductance  resistance=coil-resistance
+voltage-source V in -> gnd 24 V
+"""
+
+
+def test_a_parameter_without_a_default_must_be_given_in_its_unit():
+    circuit = mna.parse(REQUIRED + "valve K1 in -> gnd coil-resistance=24 ohm\n")
+    assert circuit.elements["K1.L"].params["inductance"] == pytest.approx(48e-3)
+    with pytest.raises(InputError, match=r"valve K2 needs its coil-resistance \(as coil-resistance=...\)") as err:
+        mna.parse(REQUIRED + "valve K2 in -> gnd\n")
+    assert err.value.line == 7
+    with pytest.raises(UnitsError, match="coil-resistance of valve K3 needs ohms"):
+        mna.parse(REQUIRED + "valve K3 in -> gnd coil-resistance=24 V\n")
+    with pytest.raises(UnitsError, match="'ohmz' is not a unit") as err:
+        mna.parse(REQUIRED.replace("in ohm", "in ohmz") + "valve K1 in -> gnd coil-resistance=1 ohm\n")
+    assert (err.value.line, err.value.column) == (2, 34)
