@@ -7,8 +7,8 @@
   and returns a :class:`FileResult` of plain data. It never raises: an
   input error, a failed simulation or a bug in mna becomes the result's
   status, so one broken file cannot stop the others.
-- :func:`check_files` runs many files, in worker processes when ``jobs``
-  is more than one, and reports each as it finishes.
+- :func:`check_files` runs many files, each in a worker process that is
+  stopped at a time limit per file, and reports each as it finishes.
 - :func:`junit_xml` writes the results as a JUnit XML report: one
   ``testsuite`` per file, one ``testcase`` per check; a failed check is a
   ``failure``, a check that could not be evaluated (input error, failed
@@ -17,17 +17,17 @@
 
 from __future__ import annotations
 
+import multiprocessing
 import os
 import time
 import traceback
-from concurrent.futures import FIRST_COMPLETED, Future, ProcessPoolExecutor, wait
-from concurrent.futures.process import BrokenProcessPool
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Callable, Iterable, Sequence
 from xml.etree import ElementTree as ET
 
 from .errors import InputError, printable, printable_lines
+from .limits import DEFAULT_FILE_SECONDS
 from .measure import CheckResult, MeasureResult
 
 #: File status -> exit status of ``mna check`` (the highest over all files wins).
@@ -163,19 +163,29 @@ def default_jobs() -> int:
     return os.cpu_count() or 1
 
 
+
+
+
 def check_files(paths: Sequence[Path], jobs: int | None = None,
                 on_result: Callable[[FileResult], None] | None = None,
-                on_wait: Callable[[], None] | None = None, wait_seconds: float = 0.2) -> list[FileResult]:
+                on_wait: Callable[[], None] | None = None, wait_seconds: float = 0.2,
+                time_limit: float | None = DEFAULT_FILE_SECONDS) -> list[FileResult]:
     """Check every file; results in the order of ``paths``.
 
-    ``jobs`` worker processes (default: one per CPU core; 1 runs in this
-    process). ``on_result(result)`` is called as each file finishes, in the
-    order they finish; ``on_wait()`` every ``wait_seconds`` while waiting
-    (to refresh a progress display).
+    ``jobs`` worker processes at a time (default: one per CPU core).
+    ``time_limit`` (s) bounds each file: a file still running then is
+    stopped (its process killed, so even a hang inside a compiled library
+    ends) and reported as a failed simulation; None (or 0) turns the limit
+    off, and with ``jobs=1`` the files then run in this process.
+    ``on_result(result)`` is called as each file finishes, in the order
+    they finish; ``on_wait()`` every ``wait_seconds`` while waiting (to
+    refresh a progress display).
     """
     jobs = default_jobs() if jobs is None else jobs
     if jobs < 1:
         raise InputError(f"--jobs needs at least 1 worker, got {jobs}")
+    if time_limit is not None and not time_limit > 0:
+        time_limit = None
     done: dict[Path, FileResult] = {}
 
     def finished(path: Path, result: FileResult) -> None:
@@ -183,40 +193,83 @@ def check_files(paths: Sequence[Path], jobs: int | None = None,
         if on_result is not None:
             on_result(result)
 
-    if jobs == 1 or len(paths) == 1:
+    if time_limit is None and (jobs == 1 or len(paths) == 1):
         for path in paths:
             finished(path, check_file(path))
     else:
-        _in_workers(paths, min(jobs, len(paths)), finished, on_wait, wait_seconds)
+        _in_processes(paths, min(jobs, len(paths)), time_limit, finished, on_wait, wait_seconds)
     return [done[p] for p in paths]
 
 
-def _in_workers(paths: Sequence[Path], workers: int, finished: Callable[[Path, FileResult], None],
-                on_wait: Callable[[], None] | None, wait_seconds: float) -> None:
-    # Workers started by fork inherit what is imported here: import the
-    # solver (scipy) once rather than once in every worker.
-    from .analyses import transient  # noqa: F401
-
-    with ProcessPoolExecutor(max_workers=workers) as pool:
-        pending: dict[Future, Path] = {pool.submit(check_file, p): p for p in paths}
-        try:
-            while pending:
-                ready, _ = wait(pending, timeout=wait_seconds, return_when=FIRST_COMPLETED)
-                for future in ready:
-                    path = pending.pop(future)
-                    finished(path, _collect(future, path))
-                if on_wait is not None and pending:
-                    on_wait()
-        except BaseException:
-            pool.shutdown(wait=False, cancel_futures=True)
-            raise
-
-
-def _collect(future: Future, path: Path) -> FileResult:
+def _child(path: Path, conn) -> None:
+    """Body of a worker process: check one file, send the result back."""
     try:
-        return future.result()
-    except BrokenProcessPool as exc:
-        return FileResult(str(path), "internal", message=f"the worker process checking this file died: {exc}")
+        conn.send(check_file(path))
+    finally:
+        conn.close()
+
+
+def _context():
+    # Fork where there is one: a worker inherits the imported solver (and
+    # scipy) instead of importing it again for every file.
+    methods = multiprocessing.get_all_start_methods()
+    return multiprocessing.get_context("fork" if "fork" in methods else methods[0])
+
+
+def _in_processes(paths: Sequence[Path], workers: int, time_limit: float | None,
+                  finished: Callable[[Path, FileResult], None], on_wait: Callable[[], None] | None,
+                  wait_seconds: float) -> None:
+    """One process per file, ``workers`` at a time, each killed at ``time_limit`` (s)."""
+    from multiprocessing.connection import wait as wait_for
+
+    from .analyses import transient  # noqa: F401 - imported once, before the workers fork
+
+    ctx = _context()
+    queue = list(paths)
+    running: dict = {}  # connection -> (process, path, start time)
+    try:
+        while queue or running:
+            while queue and len(running) < workers:
+                path = queue.pop(0)
+                receive, send = ctx.Pipe(duplex=False)
+                process = ctx.Process(target=_child, args=(path, send), daemon=True)
+                process.start()
+                send.close()
+                running[receive] = (process, path, time.monotonic())
+            for conn in wait_for(list(running), timeout=wait_seconds):
+                process, path, started = running.pop(conn)
+                finished(path, _receive(conn, process, path, time.monotonic() - started))
+            now = time.monotonic()
+            for conn, (process, path, started) in list(running.items()):
+                if time_limit is not None and now - started > time_limit:
+                    del running[conn]
+                    process.kill()
+                    process.join()
+                    conn.close()
+                    finished(path, FileResult(
+                        str(path), "simulation", seconds=now - started,
+                        message=f"stopped after {time_limit:g} s, the time limit per file "
+                                "(raise it with mna check --time-limit SECONDS)"))
+            if on_wait is not None and running:
+                on_wait()
+    finally:
+        for process, _, _ in running.values():
+            process.kill()
+        for conn, (process, _, _) in running.items():
+            process.join()
+            conn.close()
+
+
+def _receive(conn, process, path: Path, seconds: float) -> FileResult:
+    try:
+        result = conn.recv()
+    except (EOFError, OSError):
+        process.join()
+        result = FileResult(str(path), "internal", seconds=seconds,
+                            message=f"the worker process checking this file died (exit status {process.exitcode})")
+    conn.close()
+    process.join()
+    return result
 
 
 def exit_code(results: Iterable[FileResult]) -> int:

@@ -60,6 +60,9 @@ def _parser() -> argparse.ArgumentParser:
                        help="worker processes (default: one per CPU core; 1 runs in this process)")
     check.add_argument("--quiet", "-q", action="store_true",
                        help="no progress and no line per passing file")
+    check.add_argument("--time-limit", type=float, metavar="SECONDS", default=None,
+                       help="stop a file that runs longer and report it as a failed simulation "
+                            "(default: 600; 0 turns the limit off)")
     kinds = sub.add_parser("kinds", help="list element kinds and their arguments (with FILE: the blocks it defines)")
     kinds.add_argument("file", nargs="?", help="netlist file: list the blocks it defines and brings")
     return p
@@ -105,8 +108,10 @@ def cmd_run(args) -> int:
     from .measure import run_and_check
     from .report import summary, write_json
 
+    from .outputs import OutputFolder, folder_name
+
     path = Path(args.file)
-    out_dir = Path(args.out) if args.out else Path("results") / path.stem
+    out_dir = Path(args.out) if args.out else Path("results") / folder_name(path.stem)
     say = (lambda *a: None) if args.quiet else print
     progress = RunProgress(sys.stdout) if is_terminal(sys.stdout) and not args.quiet else None
     try:
@@ -122,6 +127,9 @@ def cmd_run(args) -> int:
         finally:
             if progress is not None:
                 progress.clear()
+    except InputError as exc:
+        _mark_failed(out_dir, path, exc)
+        return _error_exit(exc)
     except MnaError as exc:
         return _error_exit(exc)
     except Exception as exc:  # noqa: BLE001 - last line of defence: no traceback for users
@@ -131,15 +139,19 @@ def cmd_run(args) -> int:
     for w in circuit.warnings:
         print(printable_lines(f"warning: {w}"), file=sys.stderr)
     try:
-        outputs = _write_results(circuit, outcome.results, out_dir, args, say)
-        extra = outcome.report.to_json()
-        if outcome.failure is not None:
-            failure = outcome.failure
-            extra.update({"status": "failed", "failure": {"message": failure.message, "time_s": failure.time,
-                                                          "unknowns": list(failure.unknowns)}})
-        data = summary(circuit, outcome.results, outputs, extra=extra)
-        write_json(out_dir / "summary.json", data)
-        outputs["json"] = str(out_dir / "summary.json")
+        # Written into a staging folder and put in place at once (mna.outputs).
+        with OutputFolder(out_dir) as out:
+            staged = _write_results(circuit, outcome.results, out.stage, args, say)
+            outputs = {key: str(out.final_path(p)) for key, p in staged.items()}
+            extra = outcome.report.to_json()
+            if outcome.failure is not None:
+                failure = outcome.failure
+                extra.update({"status": "failed", "failure": {"message": failure.message, "time_s": failure.time,
+                                                              "unknowns": list(failure.unknowns)}})
+            data = summary(circuit, outcome.results, outputs, extra=extra)
+            write_json(out.stage / "summary.json", data)
+            outputs["json"] = str(out_dir / "summary.json")
+            out.commit()
     except OSError as exc:
         print(f"error: cannot write results to {out_dir}: {exc}", file=sys.stderr)
         return EXIT_INPUT
@@ -152,6 +164,19 @@ def cmd_run(args) -> int:
     if outcome.failure is not None:
         return _error_exit(outcome.failure)
     return outcome.exit_code
+
+
+def _mark_failed(out_dir: Path, path: Path, exc: BaseException) -> None:
+    """After an input error the output folder says so, rather than keep the last results as if current."""
+    import json
+
+    from .outputs import mark_failed
+
+    text = json.dumps({"file": str(path), "status": "input error", "error": str(exc)}, indent=2) + "\n"
+    try:
+        mark_failed(out_dir, text)
+    except OSError as exc2:
+        print(f"warning: cannot mark the results in {out_dir} as out of date: {exc2}", file=sys.stderr)
 
 
 def _study_or_settings(path: Path, out_dir: Path, args):
@@ -247,6 +272,7 @@ def cmd_check(args) -> int:
     import time
 
     from .batch import check_files, default_jobs, exit_code, find_circuits, junit_xml
+    from .limits import DEFAULT_FILE_SECONDS
     from .console import BatchProgress, batch_summary, file_details, is_terminal, wants_colour
     from .errors import InputError
     from .results import write_atomic
@@ -257,13 +283,16 @@ def cmd_check(args) -> int:
         jobs = min(args.jobs if args.jobs is not None else default_jobs(), len(paths))
         if jobs < 1:
             raise InputError(f"--jobs needs at least 1 worker process, got {args.jobs}")
+        if args.time_limit is not None and not args.time_limit >= 0:
+            raise InputError(f"--time-limit needs a number of seconds (0 for none), got {args.time_limit}")
     except InputError as exc:
         return _error_exit(exc)
     colour = wants_colour(sys.stdout)
     display = BatchProgress(sys.stdout, len(paths), max(len(str(p)) for p in paths),
                             live=is_terminal(sys.stdout) and not args.quiet, colour=colour, quiet=args.quiet)
     try:
-        results = check_files(paths, jobs, on_result=display.file_done, on_wait=display.tick)
+        results = check_files(paths, jobs, on_result=display.file_done, on_wait=display.tick,
+                              time_limit=DEFAULT_FILE_SECONDS if args.time_limit is None else args.time_limit)
     finally:
         display.finish()
     seconds = time.perf_counter() - started

@@ -19,6 +19,8 @@ from typing import Any, Iterator
 
 import numpy as np
 
+from .outputs import umask
+
 
 
 @dataclass
@@ -131,6 +133,7 @@ def write_atomic(path: str | Path, text: str | bytes) -> Path:
     try:
         with os.fdopen(fd, mode, **({} if mode == "wb" else {"encoding": "utf-8", "newline": ""})) as fh:
             fh.write(text)
+        os.chmod(tmp, 0o666 & ~umask())  # (mkstemp makes the file private to the user)
         os.replace(tmp, path)
     except BaseException:
         try:
