@@ -278,7 +278,10 @@ class _Calls:
                 call.span, hint=f"measure it: final({ref.label}), max({ref.label}) or at({ref.label}, 1 ms)",
             )
         if not self.has_dc:
-            raise InputError(f"{ref.label} needs a 'simulate dc' or 'simulate transient' line", call.span)
+            frequency = any(a.analysis == "frequency" for a in self.circuit.analyses)
+            raise InputError(f"{ref.label} needs a 'simulate dc' or 'simulate transient' line", call.span,
+                             hint=f"of a frequency response, measure it: magnitude({ref.label}, 1 kHz), "
+                                  f"largest({ref.label})" if frequency else None)
         self.hints[id(call)] = _hint(ref)
         if self.dry:
             return Quantity(math.nan, ref.dimension)

@@ -356,7 +356,9 @@ def _values(response: "FrequencyResponse | None", ref: "SignalRef", call: nl.Cal
     if response is None:
         raise InputError(f"{call.func}() needs the results of a frequency analysis", call.span)
     if ref.label in response:
-        return response.frequency, np.asarray(response[ref.label])
+        from .values import stored_per_si
+
+        return response.frequency, np.asarray(response[ref.label]) / stored_per_si(ref.quantity)
     if ref.target == "ratio" and all(p.label in response for p in ref.parts):
         num, den = (np.asarray(response[p.label]) for p in ref.parts)
         with np.errstate(divide="ignore", invalid="ignore"):

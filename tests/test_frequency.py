@@ -492,3 +492,23 @@ def test_transient_and_frequency_in_one_file():
     assert outcome.failure is None and outcome.report.count("pass") == 2
     waves, response = outcome.results
     assert "z(out -> gnd)" not in waves and "z(out -> gnd)" in response
+
+
+def test_a_ratio_over_a_quantity_with_no_small_signal_part():
+    from mna.errors import SimulationError
+
+    c = parse("""
+    voltage-source V1 in -> gnd 0 V stimulus=1 V
+    voltage-source V2 b -> gnd 5 V
+    resistor R1 in -> b 1 ohm
+    """)
+    with pytest.raises(SimulationError, match="v\\(b\\) has no small-signal part"):
+        c.frequency(at=[1e3], record=["v(in) / v(b)"])
+
+
+def test_shaft_speed_in_rpm_and_angle_as_phasors():
+    text = MACHINE.replace("24 V\n", "24 V stimulus=1 V\n")
+    res = sweep(text, "1 Hz", "100 Hz", per_decade=5, record=["w(rotor)", "rpm(rotor)", "angle(rotor)"])
+    w = omega(res)
+    close(res["rpm(rotor)"], res["w(rotor)"] * 60 / (2 * math.pi))
+    close(res["angle(rotor)"], res["w(rotor)"] / (1j * w))  # the angle integrates the speed

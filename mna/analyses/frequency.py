@@ -157,17 +157,22 @@ class FrequencySolver:
         self._perm_indptr: np.ndarray | None = None
         self._perm_indices: np.ndarray | None = None
 
-    def solve(self, frequencies: np.ndarray, rhs: np.ndarray) -> np.ndarray:
-        """X with shape (n, number of right-hand sides, number of frequencies)."""
+    def solve(self, frequencies: np.ndarray, rhs: np.ndarray, keep: np.ndarray | None = None) -> np.ndarray:
+        """X with shape (kept unknowns, right-hand sides, frequencies).
+
+        ``keep`` lists the unknowns whose phasors are kept (all by default):
+        a large circuit's answer at every frequency would not fit in memory.
+        """
         n, m = rhs.shape
-        out = np.empty((n, m, frequencies.size), dtype=complex)
+        keep = np.arange(n) if keep is None else np.asarray(keep, dtype=np.int64)
+        out = np.empty((keep.size, m, frequencies.size), dtype=complex)
         if self.dense:
-            self._solve_dense(frequencies, rhs, out)
+            self._solve_dense(frequencies, rhs, out, keep)
         else:
-            self._solve_sparse(frequencies, rhs, out)
+            self._solve_sparse(frequencies, rhs, out, keep)
         return out
 
-    def _solve_dense(self, frequencies, rhs, out) -> None:
+    def _solve_dense(self, frequencies, rhs, out, keep) -> None:
         system = self.system
         G = system.dense_array(self.small.G_data)
         C = system.dense_array(self.small.C_data)
@@ -185,7 +190,7 @@ class FrequencySolver:
             bad = ~np.isfinite(X).all(axis=(1, 2))
             if bad.any():
                 self._raise_singular(float(f[np.argmax(bad)]))
-            out[:, :, start:start + f.size] = np.moveaxis(X, 0, 2)
+            out[:, :, start:start + f.size] = np.moveaxis(X[:, keep, :], 0, 2)
 
     def _singular_in(self, f: np.ndarray, G: np.ndarray, C: np.ndarray) -> None:
         for fk in f:
@@ -202,7 +207,7 @@ class FrequencySolver:
             "of voltage sources and inductors has no impedance",
         )
 
-    def _solve_sparse(self, frequencies, rhs, out) -> None:
+    def _solve_sparse(self, frequencies, rhs, out, keep) -> None:
         import scipy.sparse as sp
         import scipy.sparse.linalg as spla
 
@@ -226,7 +231,7 @@ class FrequencySolver:
             self.factorizations += 1
             if not np.isfinite(X).all():
                 self._raise_singular(float(f))
-            out[:, :, k] = X
+            out[:, :, k] = X[keep]
 
     def _remember_order(self, perm_c: np.ndarray) -> None:
         """Column order of the first factorisation, as a permuted CSC structure.
@@ -358,10 +363,14 @@ def output_sensitivities(element, quantity: str, system: System, x0: np.ndarray,
 
 @dataclass
 class _Solution:
-    """Phasors of every unknown over frequency for one excitation."""
+    """Phasors of the kept unknowns over frequency for one excitation."""
 
-    X: np.ndarray  # (n, frequencies)
+    X: np.ndarray  # (kept unknowns, frequencies)
+    row: dict[int, int]  # unknown index -> row of X
     stimulus: dict[int, complex]
+
+    def x(self, index: int) -> np.ndarray:
+        return self.X[self.row[index]]
 
 
 class _Phasors:
@@ -376,7 +385,29 @@ class _Phasors:
 
     def node(self, sol: _Solution, name: str) -> np.ndarray:
         i = self.system.node_index.get(name, -1)
-        return sol.X[i] if i >= 0 else np.zeros(self.omega.size, dtype=complex)
+        return sol.x(i) if i >= 0 else np.zeros(self.omega.size, dtype=complex)
+
+    def sensitivities(self, element, quantity: str) -> dict:
+        key = (element.name, quantity)
+        slopes = self._sensitivities.get(key)
+        if slopes is None:
+            slopes = self._sensitivities[key] = output_sensitivities(element, quantity, self.system,
+                                                                     self.small.x0, self.small.discrete)
+        return slopes
+
+    def needed(self, ref: "SignalRef") -> set[int]:
+        """The unknowns whose phasors ``ref`` reads."""
+        if ref.target == "ratio":
+            return set().union(*(self.needed(p) for p in ref.parts))
+        if ref.target in ("node", "across", "impedance"):
+            return {i for i in (self.system.node_index.get(n, -1) for n in ref.names) if i >= 0}
+        found: set[int] = set()
+        for kind, what in self.sensitivities(self.circuit.elements[ref.names[0]], ref.quantity):
+            if kind == "x":
+                found.add(what)
+            elif kind == "rate":
+                found.update(int(c) for c in self.system.Cs.getrow(what).indices)
+        return found
 
     def of(self, ref: "SignalRef", sol: _Solution) -> np.ndarray:
         if ref.target == "across":
@@ -391,19 +422,16 @@ class _Phasors:
         return self._element_output(ref, sol)
 
     def _element_output(self, ref: "SignalRef", sol: _Solution) -> np.ndarray:
-        element = self.circuit.elements[ref.names[0]]
-        key = (element.name, ref.quantity)
-        slopes = self._sensitivities.get(key)
-        if slopes is None:
-            slopes = self._sensitivities[key] = output_sensitivities(element, ref.quantity, self.system,
-                                                                     self.small.x0, self.small.discrete)
+        slopes = self.sensitivities(self.circuit.elements[ref.names[0]], ref.quantity)
         total = np.zeros(self.omega.size, dtype=complex)
         for (kind, what), slope in slopes.items():
             if kind == "x":
-                total += slope * sol.X[what]
+                total += slope * sol.x(what)
             elif kind == "rate":
                 row = self.system.Cs.getrow(what)
-                total += slope * 1j * self.omega * (row @ sol.X)[0] if row.nnz else 0.0
+                charge = sum((c * sol.x(int(i)) for i, c in zip(row.indices, row.data)),
+                             np.zeros(self.omega.size, dtype=complex))
+                total += slope * 1j * self.omega * charge
             else:
                 total += slope * sol.stimulus.get(what, 0.0)
         return total
@@ -440,11 +468,13 @@ def frequency_response(circuit: "Circuit", settings: dict[str, Any],
             hint="give one source a stimulus, e.g. 'voltage-source Vin in -> gnd 12 V stimulus=1 V', "
                  "or record an impedance z(a -> b)")
     solver = FrequencySolver(small)
-    X = solver.solve(frequencies, columns)
     phasors = _Phasors(circuit, small, frequencies)
-    solutions = {"stimulus": _Solution(X[:, 0, :], stimulus)}
+    keep = np.array(sorted(set().union(*(phasors.needed(r) for r in refs))), dtype=np.int64)
+    X = solver.solve(frequencies, columns, keep)
+    row = {int(i): k for k, i in enumerate(keep)}
+    solutions = {"stimulus": _Solution(X[:, 0, :], row, stimulus)}
     for k, pair in enumerate(pairs):
-        solutions[pair] = _Solution(X[:, 1 + k, :], {})
+        solutions[pair] = _Solution(X[:, 1 + k, :], row, {})
     signals: dict[str, np.ndarray] = {}
     units: dict[str, str] = {}
     for ref in refs:
@@ -498,8 +528,13 @@ def _right_hand_sides(small: SmallSignal, refs: Sequence["SignalRef"]) -> tuple[
 def _quantity(ref: "SignalRef", phasors: _Phasors, solutions: dict) -> np.ndarray:
     if ref.target == "ratio":
         num, den = (_quantity(p, phasors, solutions) for p in ref.parts)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            return num / den
+        zero = den == 0
+        if zero.any():
+            f = phasors.omega[np.argmax(zero)] / (2.0 * np.pi)
+            raise SimulationError(
+                f"{ref.label}: {ref.parts[1].label} has no small-signal part at {f:.6g} Hz (it is exactly "
+                "zero there), so the ratio has no value; divide by a quantity the stimulus reaches")
+        return num / den
     if ref.target == "impedance":
         sol = solutions[ref.names]
         return phasors.node(sol, ref.names[0]) - phasors.node(sol, ref.names[1])  # volts per test ampere
