@@ -866,6 +866,8 @@ def _literal_hint(expr: nl.Expr) -> str:
 def _si_symbol(dim: Dimension, hint: str) -> str:
     if hint in ("rpm", "rad/s"):
         return "rad/s"
+    if hint == "Hz":
+        return "Hz"
     if hint == "N*m":
         return "N*m"
     return unit_symbol(dim)

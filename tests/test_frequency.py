@@ -13,6 +13,7 @@ import textwrap
 
 import numpy as np
 import pytest
+from scipy.optimize import brentq
 
 import mna
 from mna.errors import InputError
@@ -512,3 +513,17 @@ def test_shaft_speed_in_rpm_and_angle_as_phasors():
     w = omega(res)
     close(res["rpm(rotor)"], res["w(rotor)"] * 60 / (2 * math.pi))
     close(res["angle(rotor)"], res["w(rotor)"] / (1j * w))  # the angle integrates the speed
+
+
+def test_dc_machine_with_a_fan_load_at_its_operating_speed():
+    # A fan takes c*w*|w|: at the operating speed w0 it adds the incremental
+    # friction d(c w^2)/dw = 2*c*w0 to B in the motional term. w0 solves the
+    # DC equations 24 V = (Rb + R) i + k w0 and k i = B w0 + c w0^2 (brentq).
+    c_fan = 2e-7
+    text = MACHINE + f"load F1 rotor fan={c_fan} N*m*s^2\n"
+    k, r, b = 0.05, 0.8, 1e-4
+    w0 = brentq(lambda w: (10 + r) * (b * w + c_fan * w * w) / k + k * w - 24, 0, 24 / k)
+    res = sweep(text, "0.1 Hz", "1 kHz", per_decade=10, record=["z(a -> gnd)"])
+    w = omega(res)
+    zm = r + 1j * w * 1.2e-3 + k**2 / (b + 2 * c_fan * w0 + 1j * w * 2e-4)
+    close(res["z(a -> gnd)"], zm * 10 / (zm + 10), tol=1e-7)  # w0 from brentq to 1e-12 rad/s
