@@ -256,7 +256,9 @@ def run_command(netlist, out_dir: Path, *, jobs: int | None, cluster: str | None
         outputs = write_outputs(out_dir, result.table, result.summary, study, netlist.file, title, plots=plots,
                                 extra={"wall_time_s": seconds})
     except OSError as exc:
-        print(f"error: cannot write results to {out_dir}: {exc}", file=stream)
+        import sys
+
+        print(f"error: cannot write results to {out_dir}: {exc}", file=sys.stderr)
         return 2
     say(f"  {len(study.runs)} runs in {duration(seconds)}; results in {out_dir}/: "
         + ", ".join(Path(p).name for p in list(outputs.values())[:6])
