@@ -19,6 +19,7 @@ Prints (no asserts; timings on a shared machine vary by tens of percent):
 from __future__ import annotations
 
 import os
+import resource
 import sys
 import time
 from pathlib import Path
@@ -44,6 +45,12 @@ monte-carlo runs={runs} seed=1
 """
 
 
+def cpu_of(fn) -> float:
+    t0 = time.process_time()
+    fn()
+    return time.process_time() - t0
+
+
 def best_of(n: int, fn) -> float:
     times = []
     for _ in range(n):
@@ -60,13 +67,19 @@ def overhead() -> None:
     alone = best_of(3, lambda: [run_and_check(circuit) for _ in range(20)]) / 20
     variant = Variant.of(study)
     as_plan = best_of(3, lambda: [run_one(variant, p) for p in study.runs[:20]]) / 20
+    cpu_alone = cpu_of(lambda: [run_one(variant, p) for p in study.runs[:40]]) / 40
+    children = resource.getrusage(resource.RUSAGE_CHILDREN)
     pool = best_of(2, lambda: run_study(study, jobs=2))
+    after = resource.getrusage(resource.RUSAGE_CHILDREN)
+    cpu_pool = (after.ru_utime + after.ru_stime - children.ru_utime - children.ru_stime) / (2 * runs)
     print("1. per-run overhead (short RC run)")
     print(f"   one run alone, circuit loaded:           {alone * 1e3:7.2f} ms")
     print(f"   one study run (elaborated from its plan): {as_plan * 1e3:7.2f} ms   ratio {as_plan / alone:5.2f}")
     per_run = pool * 2 / runs
     print(f"   2-worker pool, {runs} runs: {pool:.2f} s wall = {per_run * 1e3:7.2f} ms per run in worker time"
           f"   ratio to alone {per_run / alone:5.2f}")
+    print(f"   CPU time per run (robust on a busy machine): here {cpu_alone * 1e3:6.2f} ms, in the pool's "
+          f"workers {cpu_pool * 1e3:6.2f} ms   ratio {cpu_pool / cpu_alone:5.2f}")
 
 
 def speedup() -> None:
