@@ -329,5 +329,5 @@ def check_study(netlist, jobs: int | None = 1):
         first = text.strip().splitlines()[0] if text.strip() else ""
         message = (f"{len(summary.failures)} of {summary.runs} runs did not finish; the first, run {run} "
                    f"({_values_text(values, table.units)}): {RUN_STATUS[status]}: {first}")
-    status = "ok" if summary.accepted else "failed"
+    status = {0: "ok", 1: "failed", 2: "input", 3: "simulation"}[study_exit_code(summary)]
     return status, checks, measurements, message
