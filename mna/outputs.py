@@ -8,7 +8,7 @@ run. The old folder is removed after the swap.
 
 That swap is only done to a folder mna made: one that does not exist yet,
 or holds nothing but the files a run writes (``summary.json``, ``*.csv``,
-``*.png``). Any other folder (``--out .``, say) is updated file by file
+``*.png``, and a study's ``runs.parquet``). Any other folder (``--out .``, say) is updated file by file
 with ``summary.json`` removed first and written last, so a folder without
 a ``summary.json`` is unmistakably incomplete.
 
@@ -30,7 +30,7 @@ import threading
 from pathlib import Path
 
 #: Names of the files a run writes (the only ones a swap may discard).
-_RUN_FILE = re.compile(r".+\.(csv|png|json)\Z")
+_RUN_FILE = re.compile(r".+\.(csv|png|json|parquet)\Z")
 
 _UMASK_LOCK = threading.Lock()
 

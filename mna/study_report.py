@@ -154,22 +154,28 @@ def _table(rows: list[list[str]]) -> list[str]:
 
 def write_outputs(out_dir: Path, table: StudyTable, summary: Summary, study, file: str | None, title: str,
                   *, plots: bool = True, extra: dict | None = None) -> dict[str, str]:
-    """``runs.csv`` (+ ``runs.parquet``), the pictures and ``summary.json``; name -> path."""
+    """``runs.csv`` (+ ``runs.parquet``), the pictures and ``summary.json``, staged and put in
+    place at once (:class:`mna.outputs.OutputFolder`); name -> final path."""
+    from .outputs import OutputFolder
     from .report import _clean, write_json
 
-    outputs = {"csv": str(table.to_csv(out_dir / "runs.csv"))}
-    parquet = table.to_parquet(out_dir / "runs.parquet")
-    if parquet is not None:
-        outputs["parquet"] = str(parquet)
-    if plots and len(table):
-        from .study_plots import study_pictures
+    with OutputFolder(out_dir) as out:
+        staged = {"csv": table.to_csv(out.stage / "runs.csv")}
+        parquet = table.to_parquet(out.stage / "runs.parquet")
+        if parquet is not None:
+            staged["parquet"] = parquet
+        if plots and len(table):
+            from .study_plots import study_pictures
 
-        outputs.update(study_pictures(out_dir, table, study, title))
-    data = summary_json(table, summary, file, study)
-    data["outputs"] = dict(outputs)
-    if extra:
-        data.update(extra)
-    outputs["json"] = str(write_json(out_dir / "summary.json", _clean(data)))
+            staged.update(study_pictures(out.stage, table, study, title))
+        outputs = {key: str(out.final_path(p)) for key, p in staged.items()}
+        data = summary_json(table, summary, file, study)
+        data["outputs"] = dict(outputs)
+        if extra:
+            data.update(extra)
+        write_json(out.stage / "summary.json", _clean(data))
+        outputs["json"] = str(out_dir / "summary.json")
+        out.commit()
     return outputs
 
 
