@@ -197,7 +197,10 @@ def evaluate(expr: Expr, params: Mapping[str, Quantity], call_handler: CallHandl
         return _finite(_binary(expr, left, right), expr, (left, right))
     if isinstance(expr, Negate):
         operand = sub(expr.operand)
-        return -operand if isinstance(operand, Quantity) else Samples(-operand.value, operand.dim)
+        try:
+            return -operand if isinstance(operand, Quantity) else Samples(-operand.value, operand.dim)
+        except DimensionError as exc:  # (an absolute temperature cannot be negated)
+            raise UnitsError(str(exc), expr.span) from None
     if isinstance(expr, Call):
         if call_handler is not None:
             handled = call_handler(expr, sub)
