@@ -26,12 +26,12 @@ from pathlib import Path
 from typing import Callable, Iterable, Sequence
 from xml.etree import ElementTree as ET
 
-from .errors import InputError, printable, printable_lines
+from .errors import InputError, PluginError, plugin_fault, printable, printable_lines
 from .limits import DEFAULT_FILE_SECONDS
 from .measure import CheckResult, MeasureResult
 
 #: File status -> exit status of ``mna check`` (the highest over all files wins).
-EXIT_CODES = {"ok": 0, "failed": 1, "input": 2, "simulation": 3, "internal": 4}
+EXIT_CODES = {"ok": 0, "failed": 1, "input": 2, "simulation": 3, "internal": 4, "plugin": 5}
 
 #: File status -> how the report names it.
 STATUS_TEXT = {
@@ -40,6 +40,7 @@ STATUS_TEXT = {
     "input": "input error",
     "simulation": "simulation failed",
     "internal": "internal error",
+    "plugin": "plugin error",
 }
 
 
@@ -129,11 +130,18 @@ def check_file(path: str | Path) -> FileResult:
             result.status, result.message = "simulation", _simulation_message(outcome.failure)
         else:
             result.status = {0: "ok", 1: "failed", 2: "input"}[outcome.report.exit_code]
+    except PluginError as exc:
+        result.status, result.message = "plugin", str(exc)
     except InputError as exc:
         result.status, result.message = "input", str(exc)
     except MnaError as exc:
         result.status, result.message = "simulation", _simulation_message(exc)
     except Exception as exc:  # noqa: BLE001 - reported as an internal error, the other files go on
+        fault = plugin_fault(exc)
+        if fault is not None:
+            result.status, result.message = "plugin", str(fault)
+            result.seconds = time.perf_counter() - started
+            return result
         result.status = "internal"
         result.message = (f"internal error in mna (please report it with the netlist): "
                           f"{type(exc).__name__}: {exc}\n{traceback.format_exc(limit=8)}")

@@ -36,8 +36,8 @@ from typing import Any, Iterable, Mapping, Sequence
 
 from . import netlist as nl
 from .elements.base import ELEMENT, ELECTRICAL, REFERENCE, SHAFT, THERMAL, Arg, Element
-from .elements.registry import lookup, suggest
-from .errors import InputError, NetlistSyntaxError, Span, UnitsError, UnknownNameError
+from .elements.registry import is_builtin, lookup, suggest
+from .errors import InputError, NetlistSyntaxError, Span, UnitsError, UnknownNameError, plugin_fault
 from .expressions import FUNCTIONS, children, evaluate, walk
 from .units import (
     AMPERE,
@@ -392,12 +392,17 @@ class Elaborator:
             return cls(label, nodes, params, span=st.name_span, spans=spans)
         except InputError:
             raise
-        except (ValueError, TypeError) as exc:
-            raise InputError(f"{st.kind} {label}: {exc}", st.name_span) from None
-        except ArithmeticError as exc:  # an overflow or a division by zero in the element's own formulas
-            raise InputError(f"{st.kind} {label}: its arguments lie outside the range its model can compute "
-                             f"with ({exc})", st.name_span,
-                             hint="check the values against the element's data sheet") from None
+        except Exception as exc:  # noqa: BLE001 - a plugin's own fault is reported as such
+            fault = None if is_builtin(cls) else plugin_fault(exc)
+            if fault is not None:
+                raise fault from exc
+            if isinstance(exc, (ValueError, TypeError)):
+                raise InputError(f"{st.kind} {label}: {exc}", st.name_span) from None
+            if isinstance(exc, ArithmeticError):  # an overflow or a division by zero in the model's formulas
+                raise InputError(f"{st.kind} {label}: its arguments lie outside the range its model can "
+                                 f"compute with ({exc})", st.name_span,
+                                 hint="check the values against the element's data sheet") from None
+            raise
 
     def bind(self, cls, st: nl.ElementStatement) -> tuple[dict[str, Any], dict[str, Any], dict[str, Span]]:
         """Map a statement's operands and arguments onto a kind's ports and arguments.
@@ -824,7 +829,7 @@ class Circuit:
         if element is not None:
             if q not in element.outputs:
                 have = ", ".join(f"{k}({target})" for k in element.outputs) or "nothing"
-                close = difflib.get_close_matches(q, list(element.outputs), n=1)
+                close = difflib.get_close_matches(q, list(element.outputs), n=1, cutoff=0.5)
                 raise UnknownNameError(
                     f"{element.keyword} {target} has no quantity {q}(); it offers {have}", expr.span,
                     hint=f"did you mean {close[0]}({target})?" if close else None)
@@ -948,9 +953,16 @@ class Circuit:
 
 def _element_quantities() -> set[str]:
     """Every quantity some element kind offers (built-in and plugin kinds)."""
-    from .elements.registry import element_kinds
+    from .elements.registry import keywords, lookup
+    from .errors import PluginError
 
-    return {q for cls in element_kinds().values() for q in cls.outputs}
+    found: set[str] = set()
+    for keyword in keywords():
+        try:
+            found.update(lookup(keyword).outputs)
+        except PluginError:  # a broken plugin is reported when it is used, not here
+            continue
+    return found
 
 
 def _small_signal_ref(circuit: "Circuit", expr: nl.Expr) -> SignalRef | None:

@@ -10,7 +10,8 @@
 
 Exit status: 0 all went well (every check passed), 1 a check failed,
 2 the input is wrong (syntax, units, names, topology), 3 the simulation
-failed (singular matrix, no convergence), 4 an internal error of mna.
+failed (singular matrix, no convergence), 4 an internal error of mna,
+5 an element kind from a plugin failed (it does not load, or its code raised).
 ``mna check`` exits with the highest status over its files.
 """
 
@@ -26,6 +27,7 @@ EXIT_CHECK_FAILED = 1
 EXIT_INPUT = 2
 EXIT_SIMULATION = 3
 EXIT_INTERNAL = 4
+EXIT_PLUGIN = 5
 
 
 def _parser() -> argparse.ArgumentParser:
@@ -33,7 +35,8 @@ def _parser() -> argparse.ArgumentParser:
         prog="mna",
         description="Circuit solver for inductive power circuits: netlist in; waveforms, "
         "measurements and checks out.",
-        epilog="exit status: 0 ok, 1 a check failed, 2 input error, 3 simulation failed",
+        epilog="exit status: 0 ok, 1 a check failed, 2 input error, 3 simulation failed, "
+        "4 internal error, 5 a plugin failed",
     )
     sub = p.add_subparsers(dest="command", metavar="COMMAND")
     run = sub.add_parser("run", help="run a circuit file's analyses and write results")
@@ -87,8 +90,13 @@ def main(argv: Sequence[str] | None = None) -> int:
 
 
 def _error_exit(exc: BaseException) -> int:
-    from .errors import InputError, SimulationError, printable_lines
+    from .errors import InputError, PluginError, SimulationError, plugin_fault, printable_lines
 
+    if not isinstance(exc, PluginError) and not isinstance(exc, InputError):
+        exc = plugin_fault(exc) or exc
+    if isinstance(exc, PluginError):
+        print(printable_lines(f"error in a plugin: {exc}"), file=sys.stderr)
+        return EXIT_PLUGIN
     if isinstance(exc, InputError):
         print(f"error: {exc}", file=sys.stderr)
         return EXIT_INPUT

@@ -147,7 +147,8 @@ def progress_text(t: float, until: float, elapsed: float) -> str:
 # --------------------------------------------------------------------------
 # mna check: one line per file, a progress line, the closing summary.
 
-_FILE_WORDS = {"ok": "pass", "failed": "fail", "input": "error", "simulation": "error", "internal": "error"}
+_FILE_WORDS = {"ok": "pass", "failed": "fail", "input": "error", "simulation": "error", "internal": "error",
+               "plugin": "error"}
 
 
 def file_line(result, path_width: int, *, colour: bool = False) -> str:
@@ -188,7 +189,8 @@ def batch_summary(results, seconds: float, jobs: int) -> list[str]:
     checks = f"checks: {passed} passed, {failed} failed" + (f", {broken} not evaluated" if broken else "")
     parts = [f"{files['ok']} ok"]
     for status, words in (("failed", "with a failed check"), ("input", "with an input error"),
-                          ("simulation", "with a failed simulation"), ("internal", "with an internal error")):
+                          ("simulation", "with a failed simulation"), ("internal", "with an internal error"),
+                          ("plugin", "with a plugin error")):
         if files[status]:
             parts.append(f"{files[status]} {words}")
     workers = f"{jobs} worker{'s' if jobs != 1 else ''}"

@@ -146,6 +146,50 @@ class InputError(MnaError, ValueError):
         return printable_lines("\n".join(parts))
 
 
+class PluginError(MnaError):
+    """An element kind from a plugin failed: its entry point does not load, or
+    its code raised. ``plugin`` names the plugin's module; the message says
+    what it raised. Not an input error (the netlist may be right) and not an
+    internal error of mna."""
+
+    def __init__(self, message: str, *, plugin: str, kind: str | None = None, hint: str | None = None):
+        self.message = message
+        self.plugin = plugin
+        self.kind = kind
+        self.hint = hint
+        super().__init__(message + (f"\n    hint: {hint}" if hint else ""))
+
+
+def plugin_fault(exc: BaseException) -> "PluginError | None":
+    """The plugin an unexpected exception came from, as a :class:`PluginError`, or None.
+
+    Walks the traceback for the innermost frame in a module of an element
+    kind that is not mna's own (a plugin registered by entry point or with
+    ``mna.register``), and names the plugin and, when known, its kind.
+    """
+    import sys
+
+    from .elements.registry import _extra, _loaded
+
+    plugins = {cls.__module__: keyword for keyword, cls in {**_loaded, **_extra}.items()
+               if not cls.__module__.startswith("mna.")}
+    if not plugins:
+        return None
+    found = None
+    tb = exc.__traceback__
+    while tb is not None:
+        module = tb.tb_frame.f_globals.get("__name__", "")
+        if module in plugins:
+            found = module
+        tb = tb.tb_next
+    if found is None:
+        return None
+    kind = plugins[found]
+    return PluginError(f"the element kind {kind!r} from plugin {found} raised {type(exc).__name__}: {exc}",
+                       plugin=found, kind=kind, hint=f"this is a fault in {found}, not in the netlist or in mna; "
+                       "report it to the plugin's authors")
+
+
 class NetlistSyntaxError(InputError):
     """The text does not follow the netlist grammar."""
 

@@ -931,7 +931,6 @@ def run_and_check(circuit: "Circuit", progress: Callable[[float, float], None] |
     analysis stops the run: its partial waveforms are kept in ``results``,
     the error in ``failure``, and the checks are not evaluated.
     """
-    from .analyses.transient import transient
     from .results import Waveforms
 
     results: list[Any] = []
@@ -945,6 +944,8 @@ def run_and_check(circuit: "Circuit", progress: Callable[[float, float], None] |
 
                 results.append(frequency_response(circuit, dict(request.settings), frequency_recording(circuit)))
             else:
+                from .analyses.transient import transient
+
                 settings = dict(request.settings)
                 if progress is not None:
                     settings["progress"] = progress

@@ -17,7 +17,6 @@ from collections import OrderedDict
 from dataclasses import dataclass
 
 import numpy as np
-import scipy.sparse.linalg as spla
 from scipy.linalg.lapack import dgetrf, dgetrs
 
 from .errors import SimulationError
@@ -149,6 +148,8 @@ class Factorizer:
         A = self._A
         A.data = data
         try:
+            import scipy.sparse.linalg as spla  # only the sparse path pays for its import (0.3-0.8 s)
+
             return spla.splu(A, permc_spec="COLAMD", options={"SymmetricMode": False})
         except RuntimeError:
             raise SingularMatrix(singular_unknowns(self.system, A)) from None

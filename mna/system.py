@@ -77,9 +77,12 @@ class Stamper:
             else:
                 self.names.append(f"v({node})")
                 self.dims.append(VOLT)
+        self.tolerances: dict[int, float] = {}  # unknown index -> its own Newton tolerance
         for element in circuit.elements.values():
             for u in element.unknowns():
                 self.own_index[(element.name, u.name)] = len(self.names)
+                if getattr(u, "tolerance", None) is not None:
+                    self.tolerances[len(self.names)] = float(u.tolerance)
                 self.names.append(f"{u.name}({element.name})")
                 self.dims.append(u.dimension)
         self.n = len(self.names)
@@ -495,6 +498,49 @@ def _csc_pattern(n: int, rows: np.ndarray, cols: np.ndarray):
     return indptr.astype(np.int32), u_rows.astype(np.int32), pos, unique
 
 
+class _ReferencesDropped:
+    """A batch whose index arrays name a reference node (-1), seen without it.
+
+    A reference node's potential is zero and it has no equation, so its
+    residual rows and its Jacobian rows and columns are dropped: the arrays
+    the engine sees are filtered once here, and every evaluation's values
+    with the same masks. Everything else is the batch's own.
+    """
+
+    def __init__(self, batch: NonlinearBatch):
+        self._batch = batch
+        self._f = np.asarray(batch.f_rows, np.int64) >= 0
+        self._jf = (np.asarray(batch.jf_rows, np.int64) >= 0) & (np.asarray(batch.jf_cols, np.int64) >= 0)
+        self._q = np.asarray(batch.q_rows, np.int64) >= 0
+        self._jq = (np.asarray(batch.jq_rows, np.int64) >= 0) & (np.asarray(batch.jq_cols, np.int64) >= 0)
+        self.f_rows = np.asarray(batch.f_rows, np.int64)[self._f]
+        self.jf_rows = np.asarray(batch.jf_rows, np.int64)[self._jf]
+        self.jf_cols = np.asarray(batch.jf_cols, np.int64)[self._jf]
+        self.q_rows = np.asarray(batch.q_rows, np.int64)[self._q]
+        self.jq_rows = np.asarray(batch.jq_rows, np.int64)[self._jq]
+        self.jq_cols = np.asarray(batch.jq_cols, np.int64)[self._jq]
+
+    def __getattr__(self, name: str):
+        return getattr(self._batch, name)
+
+    def limit(self, x_new: np.ndarray, x_old: np.ndarray) -> np.ndarray:
+        return self._batch.limit(x_new, x_old)
+
+    def evaluate(self, x: np.ndarray, t: float, *state):
+        fv, jfv, qv, jqv = self._batch.evaluate(x, t, *state)
+        return (np.asarray(fv, float)[self._f], np.asarray(jfv, float)[self._jf],
+                np.asarray(qv, float)[self._q] if self._q.size else qv,
+                np.asarray(jqv, float)[self._jq] if self._jq.size else jqv)
+
+
+def _without_references(batch: NonlinearBatch) -> NonlinearBatch:
+    """The batch itself, or a view without reference-node entries when it has any."""
+    arrays = (batch.f_rows, batch.jf_rows, batch.jf_cols, batch.q_rows, batch.jq_rows, batch.jq_cols)
+    if all(np.all(np.asarray(a) >= 0) for a in arrays):
+        return batch
+    return _ReferencesDropped(batch)  # type: ignore[return-value]
+
+
 def compile_circuit(circuit: "Circuit") -> System:
     """Index the unknowns, collect every stamp, build the shared sparse pattern."""
     s = Stamper(circuit)
@@ -510,7 +556,7 @@ def compile_circuit(circuit: "Circuit") -> System:
     s.current = None
     for cls, elems in kinds.items():
         cls.check_stamped(elems, s)
-    batches = [cls.Batch(elems, s) for cls, elems in by_kind.items()]
+    batches = [_without_references(cls.Batch(elems, s)) for cls, elems in by_kind.items()]
 
     g_r, g_c, g_v = (np.asarray(a) for a in s._g)
     c_r, c_c, c_v = (np.asarray(a) for a in s._c)
@@ -568,7 +614,7 @@ def compile_circuit(circuit: "Circuit") -> System:
             st_c.append(col)
             st_v.append(v)
     Cs = sp.csr_matrix((st_v, (st_r, st_c)), shape=(n_states, n))
-    abstol = np.array([ABSTOL.get(d, DEFAULT_ABSTOL) for d in s.dims])
+    abstol = np.array([s.tolerances.get(k, ABSTOL.get(d, DEFAULT_ABSTOL)) for k, d in enumerate(s.dims)])
     hold_rows = np.array(sorted(s.dc_holds), dtype=np.int64)
     hold_values = np.array([s.dc_holds[r] for r in hold_rows.tolist()], dtype=float)
     return System(

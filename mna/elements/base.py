@@ -154,6 +154,12 @@ class Unknown:
     name: str
     dimension: Dimension
     description: str = ""
+    #: Absolute Newton tolerance of this unknown (SI units of ``dimension``).
+    #: None takes the one of its dimension (1 uV, 1 pA, 1 urad/s, 1 uK; see
+    #: :data:`mna.system.ABSTOL`), or 1e-9 for a dimension mna has no entry for:
+    #: a plugin with a new kind of unknown (a flux in Wb, a pressure) says here
+    #: what "converged" means for it.
+    tolerance: float | None = None
 
 
 class Element:
@@ -245,7 +251,12 @@ class NonlinearBatch:
     """All instances of one nonlinear (or event-switched) kind, evaluated together.
 
     Protocol, filled in by subclasses at construction (indices into the
-    unknown vector; reference nodes are dropped by the engine):
+    unknown vector, as :meth:`~mna.system.Stamper.node` gives them: -1 for
+    a reference node). Entries that name a reference node, in a row or a
+    column, are dropped by the engine once at compile time, and the values
+    ``evaluate`` returns for them are ignored; a batch may list them or
+    leave them out (the built-in ones leave them out, see
+    :mod:`mna.elements.batching`):
 
     1. ``f_rows`` -- residual rows of the nonlinear ``f`` contributions.
     2. ``jf_rows``, ``jf_cols`` -- the sparsity pattern of ``df/dx``.

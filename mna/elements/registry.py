@@ -15,7 +15,7 @@ from __future__ import annotations
 import difflib
 from importlib.metadata import entry_points
 
-from ..errors import InputError
+from ..errors import PluginError
 from .base import Element
 
 #: The built-in kinds, as declared in pyproject.toml. Used when mna runs
@@ -49,7 +49,8 @@ BUILTIN = {
 }
 
 _extra: dict[str, type[Element]] = {}
-_cache: dict[str, type[Element]] | None = None
+_targets: dict[str, str] | None = None  # keyword -> "module:Class", built-in and plugin
+_loaded: dict[str, type[Element]] = {}
 
 
 def _load(target: str) -> type[Element]:
@@ -58,37 +59,68 @@ def _load(target: str) -> type[Element]:
     return getattr(mod, attr)
 
 
-def _discover() -> dict[str, type[Element]]:
-    kinds: dict[str, type[Element]] = {}
-    found = {ep.name: ep for ep in entry_points(group="mna.elements")}
-    for name, target in BUILTIN.items():
-        if name not in found:
-            kinds[name] = _load(target)
-    for name, ep in found.items():
-        cls = ep.load()
-        if not (isinstance(cls, type) and issubclass(cls, Element)):
-            raise InputError(f"entry point mna.elements:{name} ({ep.value}) is not an Element subclass")
-        if cls.keyword != name:
-            raise InputError(
-                f"entry point mna.elements:{name} loads a class whose keyword is {cls.keyword!r}; "
-                "the entry-point name must equal the keyword"
-            )
-        kinds[name] = cls
-    return kinds
+def _plugin_targets() -> dict[str, str]:
+    """Entry points of the ``mna.elements`` group, name -> target, from the cache when it is fresh.
+
+    Scanning the installed distributions takes a good part of a second on a
+    busy machine; the result is kept in the user's cache folder, keyed by
+    the folders on ``sys.path`` and their modification times (installing or
+    removing a package changes its folder's time), and rescanned when that
+    key changes.
+    """
+    from .. import cache
+
+    key = cache.path_key()
+    found = cache.read("entry-points", key)
+    if found is None:
+        found = {ep.name: ep.value for ep in entry_points(group="mna.elements")}
+        cache.write("entry-points", key, found)
+    return found
+
+
+def _all_targets() -> dict[str, str]:
+    global _targets
+    if _targets is None:
+        plugins = _plugin_targets()
+        _targets = {**{k: v for k, v in BUILTIN.items() if k not in plugins}, **plugins}
+    return _targets
+
+
+def _load_kind(keyword: str, target: str) -> type[Element]:
+    """Import one kind; a plugin that fails to load is reported as the plugin's fault."""
+    try:
+        cls = _load(target)
+    except Exception as exc:  # noqa: BLE001 - whatever the plugin's import raises
+        raise PluginError(f"the plugin entry point mna.elements:{keyword} ({target}) fails to load: "
+                          f"{type(exc).__name__}: {exc}", plugin=target.partition(":")[0],
+                          hint="fix or uninstall the package that declares it") from exc
+    if not (isinstance(cls, type) and issubclass(cls, Element)):
+        raise PluginError(f"the plugin entry point mna.elements:{keyword} ({target}) is not an "
+                          "Element subclass", plugin=target.partition(":")[0])
+    if cls.keyword != keyword:
+        raise PluginError(
+            f"the plugin entry point mna.elements:{keyword} ({target}) loads a class whose keyword is "
+            f"{cls.keyword!r}; the entry-point name must equal the keyword", plugin=target.partition(":")[0])
+    return cls
+
+
+def keywords() -> list[str]:
+    """Every element kind's keyword, without importing any kind."""
+    return sorted({*_all_targets(), *_extra})
 
 
 def element_kinds() -> dict[str, type[Element]]:
-    """Every known element kind, keyword -> class."""
-    global _cache
-    if _cache is None:
-        _cache = _discover()
-    return {**_cache, **_extra}
+    """Every known element kind, keyword -> class (imports them all)."""
+    for keyword in _all_targets():
+        lookup(keyword)
+    return {**_loaded, **_extra}
 
 
 def refresh() -> None:
     """Forget discovered kinds (after installing a plugin at run time)."""
-    global _cache
-    _cache = None
+    global _targets
+    _targets = None
+    _loaded.clear()
 
 
 def register(cls: type[Element]) -> type[Element]:
@@ -100,8 +132,22 @@ def register(cls: type[Element]) -> type[Element]:
 
 
 def lookup(keyword: str) -> type[Element] | None:
-    return element_kinds().get(keyword)
+    """The class of one kind, importing only its module; None for an unknown keyword."""
+    if keyword in _extra:
+        return _extra[keyword]
+    cls = _loaded.get(keyword)
+    if cls is None:
+        target = _all_targets().get(keyword)
+        if target is None:
+            return None
+        cls = _loaded[keyword] = _load_kind(keyword, target)
+    return cls
+
+
+def is_builtin(cls: type) -> bool:
+    """Whether a kind is one of mna's own."""
+    return cls.__module__.startswith("mna.")
 
 
 def suggest(keyword: str) -> list[str]:
-    return difflib.get_close_matches(keyword, sorted(element_kinds()), n=3, cutoff=0.6)
+    return difflib.get_close_matches(keyword, keywords(), n=3, cutoff=0.6)
