@@ -44,7 +44,7 @@ def ladder_text(sections: int) -> str:
 
 
 def baseline(circuit, settings) -> tuple[float, np.ndarray]:
-    """Seconds and z(n0 -> gnd) by plain solves, one factorisation (or solve) per frequency."""
+    """Seconds and z(n0 -> gnd) by plain solves, one factorization (or solve) per frequency."""
     system, _ = prepare(circuit)
     x0 = np.zeros(system.n)
     small = linearise(system, x0, None, stimuli(circuit))

@@ -4,7 +4,7 @@ Cases (the DC machine of Franklin, Powell & Emami-Naeini, *Feedback Control of D
 
 1. linear: motor + inertia + friction, 0.5 s at a 10 us step (50,000 steps)
    -- no brush drop, so the run takes the engine's linear path (one
-   factorisation for the whole run);
+   factorization for the whole run);
 2. nonlinear: the same with 1.5 V of brush drop and a constant load torque
    that opposes rotation (both smoothed signs, Newton's method per step);
 3. coil generator: a single coil driven at 50 Hz into a resistor, 10,000 steps
@@ -106,19 +106,19 @@ def main() -> None:
     t_lin, st_lin = engine(linear, UNTIL)
     t_bare = bare_splu_loop(linear, steps)
     print(f"  linear motor     {t_lin:7.3f} s  {st_lin['steps'] / t_lin:9.0f} steps/s  "
-          f"factorisations {st_lin['factorizations']}  "
+          f"factorizations {st_lin['factorizations']}  "
           f"({t_lin / t_bare:.1f}x a bare splu loop: {t_bare:.3f} s, {steps / t_bare:.0f} steps/s)")
 
     t_nl, st_nl = engine(nonlinear, UNTIL)
     print(f"  nonlinear motor  {t_nl:7.3f} s  {st_nl['steps'] / t_nl:9.0f} steps/s  "
           f"Newton iterations/step {st_nl['newton_iterations'] / st_nl['steps']:.2f}  "
-          f"factorisations {st_nl['factorizations']}")
+          f"factorizations {st_nl['factorizations']}")
 
     coil_until = 10_000 * STEP
     t_coil, st_coil = engine(COIL, coil_until)
     print(f"  coil generator   {t_coil:7.3f} s  {st_coil['steps'] / t_coil:9.0f} steps/s  "
           f"({st_coil['steps']} steps; Newton iterations/step "
-          f"{st_coil['newton_iterations'] / st_coil['steps']:.2f}, factorisations {st_coil['factorizations']})")
+          f"{st_coil['newton_iterations'] / st_coil['steps']:.2f}, factorizations {st_coil['factorizations']})")
 
     t_ode = ode_reference()
     print(f"  solve_ivp Radau (rtol 1e-6) on the two-state ODE: {t_ode:.3f} s "

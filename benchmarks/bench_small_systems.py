@@ -3,7 +3,7 @@
 The engine keeps systems of up to ``mna.system.DENSE_LIMIT`` unknowns dense
 (LAPACK getrf/getrs) and factors larger ones with SuperLU. This script
 compiles RLC ladders of growing size, builds the backward-Euler matrix of
-each, and prints the time of a factorisation, a solve and a matrix-vector
+each, and prints the time of a factorization, a solve and a matrix-vector
 product both ways, with the ratio sparse/dense (above 1: dense is faster).
 Each time is the best of several repeats. Asserts nothing.
 

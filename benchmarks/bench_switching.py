@@ -5,7 +5,7 @@ by pwm(100 kHz, 50 %); a diode across the coil carries its current while
 the switch is open. Every period has two gate edges (events) and a diode
 that turns on and off, so each step needs Newton iterations.
 
-Printed: steps per second, Newton iterations per step, factorisations per
+Printed: steps per second, Newton iterations per step, factorizations per
 step, and the ratio of the engine's time per step to a bare loop in the
 same process that does the least a nonlinear step can cost: one sparse LU
 (scipy.sparse.linalg.splu) and one triangular solve of the same matrix.

@@ -98,7 +98,7 @@ def run_case(n: int, until: float) -> None:
 
     print(f"\nRLC ladder, {n} sections ({2 * n} states), 0..{until * 1e6:.0f} us:")
     print(f"  mna trapezoidal error {err_mna:.2e}  {t_mna:7.3f} s  ({res.statistics['accepted_steps']} steps, "
-          f"{res.statistics['factorizations']} factorisations)")
+          f"{res.statistics['factorizations']} factorizations)")
 
     def solve(method, rtol):
         sol = solve_ivp(lambda t, x: A @ x + b, (0, until), np.zeros(2 * n), method=method,
@@ -188,7 +188,7 @@ def run_switched(periods: int = 100) -> None:
     print(f"\nCoil with freewheeling diode, 100 kHz PWM switch, {periods} periods "
           f"(solve_ivp restarted at all {2 * periods} edges):")
     print(f"  mna trapezoidal error {err_mna:.2e}  {t_mna:7.3f} s  ({st['accepted_steps']} steps, "
-          f"{st['factorizations']} factorisations, {st['events']} events)")
+          f"{st['factorizations']} factorizations, {st['events']} events)")
     match_solve_ivp(lambda method, rtol: solve_switched(periods, method, rtol, times), ref, scale,
                     err_mna, t_mna)
 

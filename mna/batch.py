@@ -159,7 +159,10 @@ def _has_study(path: str | Path) -> bool:
 
 def _simulation_message(exc: BaseException) -> str:
     where = getattr(exc, "time", None)
-    return f"simulation failed{f' at t = {where:.6g} s' if where is not None else ''}: {exc}"
+    from .units import format_si
+
+    at = f" at t = {format_si(where, 's', 6)}" if where is not None else ""
+    return f"simulation failed{at}: {exc}"
 
 
 # --------------------------------------------------------------------------

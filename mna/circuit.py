@@ -55,6 +55,7 @@ from .units import (
     refuse_celsius,
 )
 from .units import UnitError
+from .elements.switches import duty_hint
 from .values import QUANTITIES, AnalysisRequest, SignalRef, node_quantity
 from .waveforms import Constant, Piecewise, Pulse, Sine, Step, Waveform
 
@@ -281,6 +282,9 @@ class Elaborator:
                 role = spec[key][0]
                 dim = want if role == "value" else _ROLE_DIMENSION[role]
                 values[key] = self.quantity(value, dim, f"{expr.func}() argument {key}")
+                if key == "duty" and not 0.0 <= values[key] <= 1.0:
+                    raise InputError(f"pwm() duty= must lie between 0 % and 100 %, got {values[key] * 100:g} %",
+                                     value.span, hint=duty_hint(value))
             for key, (role, default) in spec.items():
                 if key not in values:
                     if default is None:

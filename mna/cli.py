@@ -91,6 +91,7 @@ def main(argv: Sequence[str] | None = None) -> int:
 
 def _error_exit(exc: BaseException) -> int:
     from .errors import InputError, PluginError, SimulationError, plugin_fault, printable_lines
+    from .units import format_si
 
     if not isinstance(exc, PluginError) and not isinstance(exc, InputError):
         exc = plugin_fault(exc) or exc
@@ -101,7 +102,7 @@ def _error_exit(exc: BaseException) -> int:
         print(f"error: {exc}", file=sys.stderr)
         return EXIT_INPUT
     if isinstance(exc, SimulationError):
-        where = f" (t = {exc.time:.6g} s)" if exc.time is not None else ""
+        where = f" (t = {format_si(exc.time, 's', 6)})" if exc.time is not None else ""
         print(printable_lines(f"simulation failed{where}: {exc.message}"), file=sys.stderr)
         return EXIT_SIMULATION
     print(printable_lines(f"internal error in mna (please report it with the netlist): "
@@ -240,7 +241,7 @@ def _write_results(circuit, results: list, out_dir: Path, args, say) -> dict[str
             st = result.statistics
             reached = float(result.time[-1]) if result.time.size else 0.0  # a run may fail at t = 0
             say(f"  transient to {_fmt(reached, 's')}: {st['steps']} steps, "
-                f"{st['factorizations']} factorisation{'s' if st['factorizations'] != 1 else ''}, "
+                f"{st['factorizations']} factorization{'s' if st['factorizations'] != 1 else ''}, "
                 f"{st['wall_time_s']:.3g} s")
     return outputs
 
@@ -352,9 +353,11 @@ def cmd_kinds() -> int:
             unit = describe(arg.dimension) if arg.dimension is not None else ", ".join(arg.choices) or "see docs"
             if arg.angular:
                 unit = ANGULAR_TEXT
+            if getattr(arg, "unit", ""):
+                unit = arg.unit
             default = ("required" if arg.required else "optional" if arg.default is None
                        else f"default {arg.default!r}")
-            print(f"    {arg.name}=  {unit}; {default}")
+            print(f"    {arg.name}=  {unit}; {default}" + (f" -- {arg.doc}" if arg.doc else ""))
     return EXIT_OK
 
 

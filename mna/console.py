@@ -181,7 +181,7 @@ def file_details(result, *, colour: bool = False) -> list[str]:
 
 
 def batch_summary(results, seconds: float, jobs: int) -> list[str]:
-    """The closing lines: counts of checks and files, then ``N passed, N failed`` alone."""
+    """The closing lines: counts of checks and files, then ``N passed, N failed[, N files with errors]`` alone."""
     passed = sum(r.count("pass") for r in results)
     failed = sum(r.count("fail") for r in results)
     broken = sum(r.count("error") for r in results)
@@ -194,8 +194,14 @@ def batch_summary(results, seconds: float, jobs: int) -> list[str]:
         if files[status]:
             parts.append(f"{files[status]} {words}")
     workers = f"{jobs} worker{'s' if jobs != 1 else ''}"
-    return [f"{checks}; files: {', '.join(parts)} ({len(results)} in {duration(seconds)}, {workers})",
-            f"{passed} passed, {failed} failed"]
+    # The last line stands alone for scripts and CI logs; files that could
+    # not be run at all (input, simulation, plugin or internal errors) are
+    # counted there too, so a run where every file failed to load does not
+    # end in "0 passed, 0 failed".
+    errors = sum(files[status] for status in ("input", "simulation", "internal", "plugin"))
+    last = f"{passed} passed, {failed} failed" + (f", {errors} file{'s' if errors != 1 else ''} with errors"
+                                                  if errors else "")
+    return [f"{checks}; files: {', '.join(parts)} ({len(results)} in {duration(seconds)}, {workers})", last]
 
 
 class BatchProgress:

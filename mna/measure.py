@@ -101,6 +101,8 @@ MEASUREMENTS: dict[str, _Spec] = {
                       doc="settling(x, BAND): time after which x stays within BAND of its final value"),
     "crossing": _Spec(extra=("level",), result="seconds",
                       doc="crossing(x, LEVEL): first time x reaches LEVEL"),
+    "time_of_max": _Spec(result="seconds", doc="time_of_max(x): when x is largest (the first sample holding it)"),
+    "time_of_min": _Spec(result="seconds", doc="time_of_min(x): when x is smallest (the first sample holding it)"),
 }
 
 _DIRECTIONS = ("rising", "falling", "either")
@@ -542,6 +544,8 @@ def _compute(func: str, time: np.ndarray, values: np.ndarray, extras: dict[str, 
     # The window is cut first, so a MeasurementError after that is about the
     # waveform (never crosses, no step), not about the request.
     t, v = wm.window(time, values, start=start, stop=stop)
+    if func in ("time_of_max", "time_of_min"):
+        return float(t[int(np.argmax(v) if func == "time_of_max" else np.argmin(v))])
     try:
         if func == "overshoot":
             return wm.overshoot(t, v) / 100.0

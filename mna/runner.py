@@ -34,6 +34,7 @@ from typing import Any, Callable, Sequence
 
 from .analyses.sweep import RunPlan, Study, Variable
 from .errors import InputError, MnaError
+from .units import format_si
 
 #: Run status -> how reports name it. "failed" is a run whose checks ran and one failed.
 RUN_STATUS = {
@@ -120,7 +121,8 @@ def run_one(variant: Variant, plan: RunPlan) -> RunRecord:
         if outcome.failure is not None:
             where = outcome.failure.time
             record.status = "simulation"
-            record.message = (f"{f'at t = {where:.6g} s: ' if where is not None else ''}"
+            at = f"at t = {format_si(where, 's', 6)}: " if where is not None else ""
+            record.message = (f"{at}"
                               f"{outcome.failure.message}")
         else:
             record.status = {0: "ok", 1: "failed", 2: "input"}[outcome.report.exit_code]

@@ -6,7 +6,7 @@ threads. What a run changes lives in run objects made fresh for each run:
 
 - :class:`DiscreteStates` -- the state object of every batch that has one
   (a switch's open/closed and its log), made by the batch's ``new_state``;
-- :class:`mna.solver.Factorizer` -- the factorisations of this run, cached
+- :class:`mna.solver.Factorizer` -- the factorizations of this run, cached
   under keys that name everything the matrix depends on;
 - the analysis's own loop state (histories, statistics).
 
@@ -91,7 +91,7 @@ class DiscreteStates:
 
     def key(self):
         """A hashable summary of every discrete state (what a matrix depends on
-        besides the step), so a state seen before reuses its factorisation.
+        besides the step), so a state seen before reuses its factorization.
         Batches without a ``state_key`` make it the count of changes so far."""
         keys = []
         for batch, state in self._evented:

@@ -1,9 +1,9 @@
-"""Sparse LU factorisation with reuse, and Newton's method on the system.
+"""Sparse LU factorization with reuse, and Newton's method on the system.
 
-:class:`Factorizer` keeps the last few factorisations keyed by what the
+:class:`Factorizer` keeps the last few factorizations keyed by what the
 matrix depends on (the integration coefficient ``alpha`` and the event
 version of switched elements), so a fixed step on a linear circuit factors
-once, and it counts factorisations and solves for the run statistics.
+once, and it counts factorizations and solves for the run statistics.
 
 :func:`newton` solves ``alpha*q(x) + history + f(x, t) = 0`` for one time
 point (``alpha = 0`` and no history is the DC operating point). A linear
@@ -142,7 +142,7 @@ class Factorizer:
 
     def _sparse_lu(self, data: np.ndarray):
         # One CSC matrix object is reused: only its values change, so its
-        # structure is not validated again for every factorisation.
+        # structure is not validated again for every factorization.
         if self._A is None:
             self._A = self.system.matrix(data.copy())
         A = self._A
@@ -155,7 +155,7 @@ class Factorizer:
             raise SingularMatrix(singular_unknowns(self.system, A)) from None
 
     def forget(self) -> None:
-        """Drop cached factorisations (after an event changed the matrix)."""
+        """Drop cached factorizations (after an event changed the matrix)."""
         self._cache.clear()
         self._last_data = None
         self._last_lu = None

@@ -39,9 +39,9 @@ DEFAULT_ABSTOL = 1e-9
 #: Systems with at most this many unknowns keep their matrices dense: they
 #: are factored with LAPACK (getrf/getrs, partial pivoting) and multiplied
 #: as arrays. For small circuits the call overhead of sparse routines
-#: dominates: on 5 unknowns SuperLU takes about 20-30 us per factorisation
+#: dominates: on 5 unknowns SuperLU takes about 20-30 us per factorization
 #: and 3 us per solve, getrf 1 us and getrs 0.6 us, and a sparse mat-vec
-#: 3 us against 1 us. On ladder matrices dense factorisation stops winning
+#: 3 us against 1 us. On ladder matrices dense factorization stops winning
 #: near 90 unknowns (``benchmarks/bench_small_systems.py`` prints the ratios).
 DENSE_LIMIT = 80
 
@@ -179,7 +179,7 @@ class System:
     """A compiled circuit, ready for the analyses. Built by :func:`compile_circuit`.
 
     Immutable: nothing a run changes is kept here (switch states live in a
-    :class:`~mna.runstate.DiscreteStates`, factorisations in a
+    :class:`~mna.runstate.DiscreteStates`, factorizations in a
     :class:`~mna.solver.Factorizer`, both made per run). The only entries
     added after construction are derived arrays computed on first use
     (``dense_flat``, the batch plan...), the same on every computation.

@@ -190,3 +190,34 @@ def _path(forest: dict[str, list[tuple[str, Element]]], a: str, b: str) -> list[
         n, e = prev[n]
         out.append(e)
     return out
+
+
+def check_dc_loops(circuit: "Circuit") -> None:
+    """Refuse a loop of ideal inductors (and voltage sources) before a DC operating point.
+
+    At the operating point an inductor with no resistance of its own is a
+    short circuit: a loop of them, or one across a voltage source, leaves the
+    loop's current undetermined (a singular matrix). Raises
+    :class:`~mna.errors.TopologyError` naming the loop, with the way out:
+    start the run from rest, or give a winding its resistance.
+    """
+    sets = _Sets(list(circuit.nodes))
+    forest: dict[str, list[tuple[str, Element]]] = defaultdict(list)
+    for element, br in _branches(circuit):
+        shorted = br.role == VOLTAGE or (br.role == INDUCTOR and not br.resistive)
+        if not shorted or br.a == br.b:
+            continue
+        if not sets.union(br.a, br.b):
+            loop = [element] + _path(forest, br.a, br.b)
+            if not any(b.role == INDUCTOR for e in loop for b in e.branches()):
+                continue  # voltage sources alone: reported by check_topology
+            names = ", ".join(dict.fromkeys(e.name for e in loop))
+            raise TopologyError(
+                f"{names} form a loop with no resistance at the DC operating point (an inductor is a short "
+                "circuit there), so the current around it is not determined",
+                element.span,
+                hint="start the transient run from rest (simulate transient ... start=rest, with initial= "
+                     "currents if needed), or give a winding its resistance=")
+        forest[br.a].append((br.b, element))
+        forest[br.b].append((br.a, element))
+

@@ -305,6 +305,7 @@ def unit_symbol(dim: Dimension) -> str:
 
 #: SI prefix -> power of ten. ``c`` is accepted only in ``cm``.
 PREFIXES: dict[str, int] = {
+    "a": -18,
     "f": -15,
     "p": -12,
     "n": -9,
@@ -438,7 +439,28 @@ def _shorten(text: str, most: int = 60) -> str:
     return text if len(text) <= most else f"{text[:most - 20]}...({len(text)} characters)"
 
 
+_PREFIX_NAMES = {"f": "femto", "p": "pico", "n": "nano", "u": "micro", "\u00b5": "micro", "\u03bc": "micro",
+                 "c": "centi", "k": "kilo", "M": "mega", "G": "giga", "T": "tera"}
+
+
+def _prefix_alone(token: str, text: str, offset: int) -> UnitError | None:
+    """``1k``, ``4.7u``, ``1 meg``: a prefix written without its unit."""
+    prefix = "M" if token.lower() == "meg" else token
+    if prefix not in _PREFIX_NAMES:
+        return None
+    number = _NUMBER.match(text, _SPACE.match(text, 0).end())
+    value = number.group() if number else "1"
+    example = {"u": "uF", "\u00b5": "uF", "\u03bc": "uF", "n": "nF", "p": "pF", "f": "fF", "c": "cm"}.get(
+        prefix, prefix + "ohm")
+    spelled = "'meg' is not a prefix; mega is M, and " if token.lower() == "meg" else ""
+    return UnitError(f"{_shorten(text.strip())!r}: {spelled}a prefix needs its unit: {value} {example} "
+                     f"({prefix} is {_PREFIX_NAMES[prefix]}; write the unit the value is in after it)", offset)
+
+
 def _unknown_unit(token: str, text: str, offset: int) -> UnitError:
+    alone = _prefix_alone(token, text, offset)
+    if alone is not None:
+        return alone
     message = f"unknown unit {_shorten(token)!r} in {_shorten(text)!r}"
     if token[0] == "c" and token[1:] in UNITS:
         message += " (the prefix 'c', centi, is used only in 'cm')"
@@ -767,7 +789,7 @@ def parse_quantity(text: str) -> Quantity:
 # --------------------------------------------------------------------------
 
 _FORMAT_PREFIXES: dict[int, str] = {
-    -15: "f", -12: "p", -9: "n", -6: "u", -3: "m", 0: "", 3: "k", 6: "M", 9: "G", 12: "T",
+    -18: "a", -15: "f", -12: "p", -9: "n", -6: "u", -3: "m", 0: "", 3: "k", 6: "M", 9: "G", 12: "T",
 }
 _LEADING_SYMBOL = re.compile(r"[^\W\d_]+|%")
 
@@ -795,7 +817,7 @@ def _strip_zeros(digits: str) -> str:
 def format_si(value: float, unit: str = "", digits: int = 4) -> str:
     """Engineering format with an SI prefix: ``format_si(0.0047, "H") == "4.7 mH"``.
 
-    ``digits`` significant digits, trailing zeros stripped; prefixes f..T.
+    ``digits`` significant digits, trailing zeros stripped; prefixes a..T.
     Values outside that range, empty units and units that cannot take a
     prefix (``kg``, ``m^2``, ``1/s``) use an exponent in steps of three
     (``4.7e-3``). nan and inf are printed plainly.

@@ -395,3 +395,28 @@ def test_results_lookup_of_the_comma_form_suggests_the_arrow():
     op = mna.parse(DIVIDER + "record v(in -> mid)\n").dc()
     with pytest.raises(KeyError, match=r"did you mean v\(in -> mid\)"):
         op["v(in, mid)"]
+
+
+def test_time_of_the_peak_of_an_rlc_step():
+    # Series RLC step, underdamped: the capacitor voltage peaks at
+    # tp = pi/wd and the current at atan(wd/alpha)/wd (the zero of
+    # d/dt e^-at sin(wd t)); Nise, *Control Systems Engineering*, ch. 4,
+    # and Nilsson & Riedel ch. 8.
+    R, L, C = 10.0, 1e-3, 1e-6
+    alpha, w0 = R / (2 * L), 1 / math.sqrt(L * C)
+    wd = math.sqrt(w0**2 - alpha**2)
+    c = mna.parse(
+        "voltage-source V1 in -> gnd step(from=0 V, to=1 V, at=0 s)\n"
+        f"resistor R1 in -> a {R} ohm\ninductor L1 a -> b {L} H\ncapacitor C1 b -> gnd {C} F\n"
+        "simulate transient until=300 us step=50 ns method=trapezoidal\n"
+        "measure tp = time_of_max(v(b))\nmeasure ti = time_of_max(i(L1))\n"
+        "measure tlow = time_of_min(v(b), from=tp)\n"
+    )
+    values = {m.name: m.value for m in run_and_check(c).report.measurements}
+    # The sample grid is 50 ns: the sampled maximum lies within one step of
+    # the true one (the peak is flat, so rounding of the trapezoidal rule,
+    # (h w0)^2/12 ~ 2e-7 in phase, does not move it by a step).
+    assert values["tp"] == pytest.approx(math.pi / wd, abs=50e-9)
+    assert values["ti"] == pytest.approx(math.atan(wd / alpha) / wd, abs=50e-9)
+    # The first minimum after the peak is half a damped period later.
+    assert values["tlow"] == pytest.approx(2 * math.pi / wd, abs=50e-9)

@@ -469,7 +469,8 @@ def test_malformed_units(parse, text: str, offset: int) -> None:
         ((math.pi, "V", 3), "3.14 V"),
         ((math.nan, "V"), "nan V"),
         ((-math.inf, "A"), "-inf A"),
-        ((1e-16, "V"), "100e-18 V"),  # below femto: exponent form
+        ((1e-16, "V"), "100 aV"),  # atto: times of a failed first step read "532.5 as", not "532.5e-18 s"
+        ((1e-19, "V"), "100e-21 V"),  # below atto: exponent form
         ((2e15, "W"), "2e15 W"),  # above tera
         ((0.0047, ""), "4.7e-3"),  # no unit: a lone prefix would read as metres
         ((2e-3, "m^2"), "2e-3 m^2"),  # "2 mm^2" would mean (mm)^2

@@ -19,6 +19,7 @@ from ..results import OperatingPoint
 from ..runstate import DiscreteStates
 from ..solver import Factorizer, SingularMatrix, newton, raise_singular
 from ..system import Probe, System
+from ..topology import check_dc_loops
 from .common import compute_signal, dc_leak, default_signals, prepare, require_finite, unit_label
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -56,12 +57,16 @@ def solve_dc(system: System, factorizer: Factorizer, leak: np.ndarray | None, t:
     4. source ramping: every independent source raised from 0 to its full
        value, in fractions that grow after a success and halve after a failure.
 
+    A loop of ideal inductors and voltage sources is refused first
+    (:func:`mna.topology.check_dc_loops`).
+
     Switching elements are then asked for their state at this point
     (``update_events``); while any state changes the point is solved again,
     so a comparator gate agrees with the voltages that drive it. Raises
     :class:`~mna.errors.SimulationError` (exit status 3) naming the
     unknowns that did not settle.
     """
+    check_dc_loops(system.circuit)
     x = np.zeros(system.n) if guess is None else np.array(guess, dtype=float)
     if discrete is None:
         discrete = DiscreteStates(system, t)

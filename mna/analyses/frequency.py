@@ -19,7 +19,7 @@ current into ``a`` and out of ``b`` with every stimulus at zero, so ``Z =
 V(a) - V(b)`` in ohms is the impedance seen between the two nodes with the
 independent sources killed.
 
-All right-hand sides share one factorisation per frequency. Small systems
+All right-hand sides share one factorization per frequency. Small systems
 (up to :data:`mna.system.DENSE_LIMIT` unknowns) are solved as one stack of
 dense matrices per block of frequencies; larger ones with SuperLU on the
 shared CSC pattern, with the fill-reducing column order found at the first
@@ -234,7 +234,7 @@ class FrequencySolver:
             out[:, :, k] = X[keep]
 
     def _remember_order(self, perm_c: np.ndarray) -> None:
-        """Column order of the first factorisation, as a permuted CSC structure.
+        """Column order of the first factorization, as a permuted CSC structure.
 
         SuperLU factors ``A Pc``; column ``perm_c[j]`` of ``A Pc`` is column
         ``j`` of ``A``. The permuted matrix ``B = A[:, p]`` with ``p =

@@ -109,6 +109,10 @@ class Arg:
     angular: bool = False
     absolute: bool = False  # an absolute temperature: takes K or a literal in degC
     resolve: Any = None
+    #: How the unit is written in ``mna kinds`` and the docs when the SI
+    #: description of ``dimension`` would read differently ("N*m*s^2" rather
+    #: than kg*m^2, "rad or deg" for an angle that is a plain number in SI).
+    unit: str = ""
     #: The physical range of a quantity (SI), checked at input; None: no bound.
     minimum: float | None = None
     maximum: float | None = None
@@ -140,11 +144,17 @@ TWO_TERMINAL = (Port(("a", "b"), ELECTRICAL),)
 
 @dataclass(frozen=True)
 class Branch:
-    """A connection between two nodes with a topology role."""
+    """A connection between two nodes with a topology role.
+
+    ``resistive=True`` on an :data:`INDUCTOR` branch says that it has a
+    resistance of its own in series (a winding's ``resistance=``), so it is
+    not a short circuit at the DC operating point.
+    """
 
     a: str
     b: str
     role: str
+    resistive: bool = False
 
 
 @dataclass(frozen=True)
@@ -268,7 +278,7 @@ class NonlinearBatch:
        limiting); the default returns ``x_new``.
     6. ``piecewise_linear = True`` declares that ``f`` and ``q`` are affine
        in x between events (a switch: ``f = g(state) * v``): the engine then
-       solves each step with one factorisation reused until the next event,
+       solves each step with one factorization reused until the next event,
        instead of Newton iterations.
     7. ``new_state(t)`` returns a fresh object holding the discrete states
        of one run as they are at time ``t`` (a switch's open/closed, its
@@ -289,7 +299,7 @@ class NonlinearBatch:
        the step to land on it. Time-driven changes (a schedule, a PWM gate)
        are ``corners`` instead, which the engine lands on exactly.
     10. ``state_key(state)`` returns a hashable summary of the discrete
-        states (or None): factorisations are cached under it, so the two
+        states (or None): factorizations are cached under it, so the two
         halves of a PWM period each factor once for the whole run.
     11. ``snapshot(state)`` returns an immutable copy of the discrete states
         (for :class:`mna.results.RunEnd`), and ``restore(snapshot, t)`` a
@@ -328,7 +338,7 @@ class NonlinearBatch:
 
     def state_key(self, state=None):
         """A hashable summary of the discrete states (``state.tobytes()``), or
-        None. With it the engine reuses the factorisation of a state seen before."""
+        None. With it the engine reuses the factorization of a state seen before."""
         return None
 
     def snapshot(self, state=None):

@@ -192,7 +192,7 @@ class DCMachine(Element):
 
     Unknown: the armature current i (A), from ``a`` through the winding to
     ``b``. Without a brush drop the machine is linear (a run keeps one
-    factorisation). ``inductance`` may be 0 (the current is then algebraic).
+    factorization). ``inductance`` may be 0 (the current is then algebraic).
 
     Brush drop ``brush-drop=`` Vb (typically about 2 V for carbon brushes,
     common practice): a voltage that opposes the current, ``Vb*sign(i)``,
@@ -271,12 +271,12 @@ class DCMachine(Element):
                     self.span)
             self.resistance, self.constant = float(p["resistance"]), float(p["constant"])
         if p["brush-drop"] == 0.0:
-            # Linear: stays out of the nonlinear batch (one factorisation per run).
+            # Linear: stays out of the nonlinear batch (one factorization per run).
             self.Batch = None
 
     def branches(self):
         winding = INDUCTOR if self.params["inductance"] > 0 else CONDUCTOR
-        return [Branch(self.nodes["a"], self.nodes["b"], winding),
+        return [Branch(self.nodes["a"], self.nodes["b"], winding, resistive=self.resistance > 0),
                 Branch(self.nodes["shaft"], FRAME, GYRATOR)]
 
     def unknowns(self):
@@ -390,7 +390,8 @@ class CoilGenerator(Element):
         Arg("area", AREA, positive=True, doc="area A enclosed by one turn"),
         Arg("resistance", OHM, default=0.0, nonnegative=True, doc="coil resistance"),
         Arg("inductance", HENRY, default=0.0, nonnegative=True, doc="coil inductance"),
-        Arg("initial-angle", DIMENSIONLESS, default=0.0, doc="angle at t = 0 (rad or deg)"),
+        Arg("initial-angle", DIMENSIONLESS, default=0.0, unit="an angle in rad or deg",
+            doc="angle at t = 0 (rad or deg)"),
         Arg("initial", AMPERE, default=0.0, doc="coil current at t = 0 when the run starts at rest"),
     )
     outputs = {**MACHINE_OUTPUTS, "angle": DIMENSIONLESS}

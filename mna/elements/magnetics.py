@@ -191,8 +191,9 @@ class Transformer(Element):
         return transformer_inductances(p["ratio"], p["magnetising"], p["leakage"])
 
     def branches(self):
-        return [Branch(self.nodes["a"], self.nodes["b"], INDUCTOR),
-                Branch(self.nodes["c"], self.nodes["d"], INDUCTOR)]
+        p = self.params
+        return [Branch(self.nodes["a"], self.nodes["b"], INDUCTOR, resistive=p["primary-resistance"] > 0),
+                Branch(self.nodes["c"], self.nodes["d"], INDUCTOR, resistive=p["secondary-resistance"] > 0)]
 
     def unknowns(self):
         return (Unknown("i1", AMPERE, "primary current a -> b"), Unknown("i2", AMPERE, "secondary current c -> d"))

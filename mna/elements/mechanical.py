@@ -75,7 +75,7 @@ def smooth_sign(u: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 
     ``s(u) = 1.5 u - 0.5 u^3`` for ``|u| < 1``, ``sign(u)`` outside. It meets
     +-1 with zero slope at ``|u| = 1``, so past the band the value and the
-    Jacobian are exactly constant (a solver can keep its factorisation),
+    Jacobian are exactly constant (a solver can keep its factorization),
     and ``s'(0) = 1.5``. Used for a load torque that opposes rotation
     (``u = w / band``) and for a machine's brush drop (``u = i / band``).
     """
@@ -280,7 +280,7 @@ class Load(ShaftPart):
             doc="opposing: against the direction of rotation; fixed: always against positive rotation"),
         Arg("band", ANGULAR_SPEED, default=0.1, positive=True, angular=True,
             doc="speed band over which an opposing torque builds up from zero (rad/s or rpm)"),
-        Arg("fan", FAN_COEFFICIENT, default=None, nonnegative=True,
+        Arg("fan", FAN_COEFFICIENT, default=None, nonnegative=True, unit="N*m*s^2 (N*m per (rad/s)^2)",
             doc="fan/pump coefficient c in c*w*|w| (N*m*s^2)"),
         Arg("fan-torque", TORQUE, default=None, positive=True, doc="fan torque at fan-speed (N*m)"),
         Arg("fan-speed", ANGULAR_SPEED, default=None, positive=True, angular=True,
@@ -308,7 +308,7 @@ class Load(ShaftPart):
             p["torque"] = Constant(float(p["torque"]))
         if not (self.opposing or self.fan_coefficient > 0):
             # A fixed torque alone is linear: this instance stays out of the
-            # nonlinear batch, so the engine keeps its one-factorisation path.
+            # nonlinear batch, so the engine keeps its one-factorization path.
             self.Batch = None
 
     @property

@@ -96,7 +96,7 @@ class Inductor(TwoTerminal):
     summary = "linear inductor with optional winding resistance"
 
     def branches(self):
-        return [Branch(self.nodes["a"], self.nodes["b"], INDUCTOR)]
+        return [Branch(self.nodes["a"], self.nodes["b"], INDUCTOR, resistive=self.params["resistance"] > 0)]
 
     def unknowns(self):
         return (Unknown("i", AMPERE, "branch current a -> b"),)

@@ -10,7 +10,7 @@ Netlist::
 A switch is a resistance ``on=`` when closed and ``off=`` when open
 (defaults 10 mohm and 10 Mohm): ``i = v / R(state)``. Between state
 changes it is linear, so its batch is piecewise linear and the transient
-engine reuses one LU factorisation until the next change.
+engine reuses one LU factorization until the next change.
 
 Gates:
 
@@ -168,16 +168,17 @@ def _pwm(expr: nl.Call, value: Evaluate, span) -> "PwmGate":
         raise InputError("pwm() frequency= must be positive", named["frequency"].span)
     if not 0.0 <= d <= 1.0:
         raise InputError(f"pwm() duty= must lie between 0 % and 100 %, got {d * 100:g} %", named["duty"].span,
-                         hint=_duty_hint(named["duty"]))
+                         hint=duty_hint(named["duty"]))
     if delay < 0:
         raise InputError("pwm() delay= cannot be negative", named["delay"].span)
     return PwmGate(f, d, delay)
 
 
-def _duty_hint(expr: nl.Expr) -> str | None:
+def duty_hint(expr: nl.Expr) -> str | None:
     """``duty=60`` is a fraction 60 (6000 %): suggest ``60 %``."""
     if isinstance(expr, nl.Number) and expr.value.dim == DIMENSIONLESS and 1 < expr.value.value <= 100:
-        return f"a duty is a fraction or a percentage: write duty={expr.text.strip()} % (or {expr.value.value / 100:g})"
+        return (f"a duty is a fraction (0 to 1) or a percentage: write duty={expr.text.strip()} % "
+                f"(or duty={expr.value.value / 100:g})")
     return None
 
 
