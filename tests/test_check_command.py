@@ -85,7 +85,7 @@ def test_check_over_a_folder_in_parallel(folder, tmp_path):
     out = result.stdout
     assert no_control_characters(out)
     lines = out.splitlines()
-    assert lines[-1] == "4 passed, 1 failed"
+    assert lines[-1] == "4 passed, 1 failed, 1 file with errors"  # the broken file counts in the last line
     assert lines[-2].startswith("checks: 4 passed, 1 failed; files: 2 ok, 1 with a failed check, "
                                 "1 with an input error")
     assert "needs ohms (ohm), got 1 F" in out  # the broken file's error, with its place
@@ -241,3 +241,19 @@ def test_run_shows_progress_only_on_a_terminal(folder, tmp_path, monkeypatch):
     monkeypatch.setattr(sys, "stdout", terminal)
     assert main(["run", str(folder / "good.mna"), "--out", str(tmp_path / "c"), "--no-plot", "--quiet"]) == 0
     assert seen[-1] is None
+
+
+def test_last_line_counts_files_that_fail_to_load(tmp_path):
+    # Every file fails to load: the last line must not read "0 passed, 0 failed".
+    from mna.cli import main
+
+    for k in range(2):
+        (tmp_path / f"broken{k}.mna").write_text("resistor R1 a -> gnd 1 F\nsimulate dc\n")
+    import contextlib
+    import io
+
+    out = io.StringIO()
+    with contextlib.redirect_stdout(out):
+        code = main(["check", str(tmp_path), "--jobs", "1"])
+    assert code == 2
+    assert out.getvalue().splitlines()[-1] == "0 passed, 0 failed, 2 files with errors"
