@@ -1,5 +1,6 @@
-"""Pictures of a study: a histogram per measurement with its check limits, and for a
-two-parameter sweep a map of each measurement over the grid with the failing region.
+"""Pictures of a study: a histogram per measurement with its check limits; for a
+two-parameter sweep a map of each measurement over the grid with the failing region;
+for a one-parameter sweep each measurement against the swept value.
 
 matplotlib is imported only here, when a picture is drawn. The look is the
 project's own (palette of :mod:`mna.report`): teal bars, amber limit lines
@@ -196,7 +197,71 @@ def study_pictures(out_dir: Path, table, study, title: str) -> dict[str, str]:
             outputs[f"histogram check line {check.line}"] = str(png)
     if study.mode == "sweep" and len(study.sweep_shape) == 2:
         outputs.update(_maps(out_dir, table, study, title))
+    if study.mode == "sweep" and len(study.sweep_shape) == 1:
+        outputs.update(_curves(out_dir, table, study, title))
     return outputs
+
+
+def curve(path: str | Path, x: np.ndarray, y: np.ndarray, failing: np.ndarray, broken: np.ndarray,
+          labels: tuple[str, str], units: tuple[str, str], scale: str,
+          limits: list[tuple[str, list[float], str]], title: str) -> Path:
+    """One measurement against the one swept value, with its checks' limits; failing points marked."""
+    plt = _pyplot()
+    fx, ux = _scale(x, units[0])
+    fy, uy = _scale(np.concatenate([y, *[np.asarray(v) for _, v, _ in limits]]) if limits else y, units[1])
+    fig, ax = plt.subplots(figsize=(7.5, 4.2))
+    ax.plot(x / fx, y / fy, color=TEAL, linewidth=1.6, marker="o", markersize=4, zorder=3)
+    if failing.any():
+        ax.plot(x[failing] / fx, y[failing] / fy, linestyle="none", marker="s", markersize=8,
+                markerfacecolor="none", markeredgecolor=BRICK, markeredgewidth=1.6, zorder=4,
+                label="a check fails")
+    for text, lines, _ in limits:
+        for j, level in enumerate(lines):
+            ax.axhline(level / fy, color=AMBER, linewidth=2.0, linestyle=(0, (6, 3)), zorder=2,
+                       label=f"limit: {text}" if j == 0 else None)
+    if broken.any():
+        for xb in x[broken] / fx:
+            ax.axvline(xb, color="black", linewidth=0.8, linestyle=":", zorder=1)
+    if scale == "log":
+        from matplotlib.ticker import FuncFormatter
+
+        ax.set_xscale("log")
+        plain = FuncFormatter(lambda v, _: f"{v:g}")
+        ax.xaxis.set_major_formatter(plain)
+        ax.xaxis.set_minor_formatter(plain)
+    ax.set_xlabel(f"{labels[0]} [{ux}]" if ux else labels[0])
+    ax.set_ylabel(f"{labels[1]} [{uy}]" if uy else labels[1])
+    ax.set_title(title + (f"\n{int(broken.sum())} runs failed (dotted)" if broken.any() else ""),
+                 fontsize=9.5, loc="left")
+    ax.grid(True, color="#d9d9d9", linewidth=0.6, zorder=0)
+    for side in ("top", "right"):
+        ax.spines[side].set_visible(False)
+    if failing.any() or limits:
+        ax.legend(loc="upper left", bbox_to_anchor=(1.0, 1.0), fontsize=8, frameon=False)
+    fig.tight_layout()
+    return _save(fig, Path(path))
+
+
+def _curves(out_dir: Path, table, study, title: str) -> dict[str, str]:
+    """For a one-line sweep: each measurement against the first swept name."""
+    first = study.variable(study.sweep_labels[0][0])
+    x = table[first.label]
+    status = table["status"]
+    broken = np.isin(status, ["input", "simulation", "internal"])
+    out = {}
+    names = list(table.measures) + [f"value: {c.text}" for c in table.checks if c.left_name is None]
+    for name in names:
+        own = [c for c in table.checks if c.left_name == name or f"value: {c.text}" == name]
+        failing = np.zeros(len(table), dtype=bool)
+        for c in own:
+            failing |= table[f"pass: {c.text}"] == 0.0
+        limits = [(c.text, table.limits[c.text], c.op) for c in own if c.text in table.limits]
+        shown = name.replace("value: ", "")
+        png = curve(out_dir / f"sweep-{file_stem(name.replace('value: ', 'check '))}.png", x, table[name],
+                    failing, broken, (first.label, shown), (first.unit, table.units[name]),
+                    study.sweep_scales[0], limits, title)
+        out[f"sweep {name}"] = str(png)
+    return out
 
 
 def _maps(out_dir: Path, table, study, title: str) -> dict[str, str]:

@@ -146,6 +146,21 @@ def summary_lines(table: StudyTable, summary: Summary, file: str | None, *, colo
     return lines
 
 
+def run_rows(table: StudyTable, *, colour: bool = False) -> list[str]:
+    """One aligned row per run: its varied values, measurements and verdict (for small sweeps)."""
+    rows = [["run"] + table.variables + table.measures + ["result"]]
+    for k in range(len(table)):
+        status = str(table["status"][k])
+        verdict = "pass" if status == "ok" else "FAIL" if status == "failed" else RUN_STATUS[status]
+        rows.append([str(int(table["run"][k]))]
+                    + [_fmt(float(table[v][k]), table.units[v]) for v in table.variables]
+                    + [_fmt(float(table[m][k]), table.units[m]) for m in table.measures] + [verdict])
+    lines = ["runs:"] + _table(rows)
+    if colour:
+        lines = [line.replace("  FAIL", "  " + status_word("fail", True).strip()) for line in lines]
+    return lines
+
+
 def _table(rows: list[list[str]]) -> list[str]:
     widths = [max(len(r[k]) for r in rows) for k in range(len(rows[0]))]
     return ["  " + "  ".join(cell.ljust(w) if k == 0 else cell.rjust(w) for k, (cell, w) in
@@ -255,6 +270,8 @@ def run_command(netlist, out_dir: Path, *, jobs: int | None, cluster: str | None
     result = finish(study, records)
     colour = wants_colour(stream)
     lines = summary_lines(result.table, result.summary, netlist.file, colour=colour)
+    if study.mode == "sweep" and len(study.runs) <= 30:
+        lines = run_rows(result.table, colour=colour) + lines
     for line in lines if not quiet else lines[-1:]:
         print(line, file=stream)
     title = f"{Path(base_title).stem}: {len(study.runs)} runs"

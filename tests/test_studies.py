@@ -9,6 +9,7 @@ from __future__ import annotations
 import json
 import math
 import shlex
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -285,6 +286,9 @@ def test_sweep_map_and_pandas_frame(tmp_path):
 
     outputs = study_pictures(tmp_path, result.table, result.study, "divider")
     assert any(name.startswith("map") for name in outputs)
+    one = studies.sweep(text, {"R2v": [500.0, 1000.0, 2000.0]}, jobs=1)
+    pictures = study_pictures(tmp_path / "one", one.table, one.study, "divider")
+    assert Path(pictures["sweep value: v(out) < 5.1 V"]).stat().st_size > 1000
     if _has("pandas"):
         frame = result.table.to_pandas()
         assert list(frame["Vin"]) == [9.0, 9.0, 10.0, 10.0, 11.0, 11.0]
