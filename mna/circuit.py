@@ -495,8 +495,8 @@ class Elaborator:
                 hint = f"did you mean {close[0]}=?" if close else "it takes " + ", ".join(f"{k}=" for k in known)
                 raise UnknownNameError(f"{st.kind} has no argument {a.key!r}", a.span, hint=hint)
             raw[a.key] = (a.value, a.span)
-        for name in keyword_ports:
-            if name not in nodes:
+        for name, port in keyword_ports.items():
+            if name not in nodes and port.minimum > 0:
                 raise InputError(f"{st.kind} {label} needs {name}=NODE", st.name_span)
         params: dict[str, Any] = {}
         for arg in cls.arguments:
@@ -636,6 +636,8 @@ class Circuit:
             if port.domain == ELEMENT:
                 continue
             for terminal in port.names:
+                if terminal not in element.nodes:  # an optional keyword connection left out
+                    continue
                 node = element.nodes[terminal]
                 self._use_node(node, port.domain, element.spans.get(terminal, span or element.span), element)
         self.elements[element.name] = element
@@ -691,6 +693,8 @@ class Circuit:
             if port.keyword:
                 key = port.names[0]
                 if key not in arguments:
+                    if port.minimum == 0:  # an optional connection
+                        continue
                     raise InputError(f"{kind} {name} needs {key}=NODE")
                 nodes[key] = arguments.pop(key)
                 continue

@@ -341,7 +341,7 @@ def cmd_kinds() -> int:
         ports = []
         for port in cls.ports:
             if port.keyword:
-                ports.append(f"{port.names[0]}=NODE")
+                ports.append(f"[{port.names[0]}=NODE]" if port.minimum == 0 else f"{port.names[0]}=NODE")
             elif port.variadic:
                 ports.append(f"{port.names[0].upper()}...")
             else:

@@ -129,7 +129,9 @@ class Port:
     ``names`` holds one name (a single node, or a keyword connection) or
     two (a connection ``a -> b``). ``keyword=True`` means the terminal is
     given as ``name=node``. ``variadic=True`` (with ``domain=ELEMENT``) means
-    a list of element names.
+    a list of element names. A keyword terminal with ``minimum=0`` is
+    optional (a transistor's ``junction=`` thermal node): when it is left
+    out, ``nodes`` has no entry for it.
     """
 
     names: tuple[str, ...]
@@ -228,7 +230,8 @@ class Element:
             if port.domain == ELEMENT:
                 continue
             for n in port.names:
-                out.append((self.nodes[n], port.domain))
+                if n in self.nodes:  # an optional keyword connection may be left out
+                    out.append((self.nodes[n], port.domain))
         return out
 
     # -- compile -------------------------------------------------------------

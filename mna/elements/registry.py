@@ -46,6 +46,8 @@ BUILTIN = {
     "cauer": "mna.elements.thermal:Cauer",
     "temperature-source": "mna.elements.thermal:TemperatureSource",
     "heat-source": "mna.elements.thermal:HeatSource",
+    "mosfet": "mna.elements.transistors:Mosfet",
+    "igbt": "mna.elements.transistors:Igbt",
 }
 
 _extra: dict[str, type[Element]] = {}

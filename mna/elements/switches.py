@@ -96,8 +96,21 @@ class CompareSpec:
         return f"{self.quantity}({' -> '.join(self.names)})"
 
 
-GATE_HELP = ("a gate is schedule(closed, 2 ms: open, ...), pwm(frequency=.., duty=.., delay=..) "
-             "or a comparison such as v(g) > 2.5 V or i(L1) < 1 A")
+@dataclass
+class ComplementSpec:
+    """``complement(Q1, dead=200 ns)``: closed while Q1's gate is open, less a dead time at both edges.
+
+    Realised at compile time (:func:`complement_gate`), when Q1 is known.
+    """
+
+    other: str
+    dead: float  # s
+    span: Any = None
+    name_span: Any = None
+
+
+GATE_HELP = ("a gate is schedule(closed, 2 ms: open, ...), pwm(frequency=.., duty=.., delay=..), "
+             "complement(Q1, dead=200 ns) or a comparison such as v(g) > 2.5 V or i(L1) < 1 A")
 
 Evaluate = Callable[[nl.Expr], Quantity]
 
@@ -116,6 +129,8 @@ def resolve_gate(expr: nl.Expr, value: Evaluate) -> "ScheduleGate | PwmGate | Co
         return _schedule(expr, value, span)
     if isinstance(expr, nl.Call) and expr.func == "pwm":
         return _pwm(expr, value, span)
+    if isinstance(expr, nl.Call) and expr.func == "complement":
+        return _complement(expr, value, span)
     if isinstance(expr, nl.Compare):
         return _comparison(expr, value, span)
     if isinstance(expr, nl.Call):
@@ -172,6 +187,21 @@ def _pwm(expr: nl.Call, value: Evaluate, span) -> "PwmGate":
     if delay < 0:
         raise InputError("pwm() delay= cannot be negative", named["delay"].span)
     return PwmGate(f, d, delay)
+
+
+def _complement(expr: nl.Call, value: Evaluate, span) -> ComplementSpec:
+    if len(expr.args) != 1 or not isinstance(expr.args[0], nl.Name):
+        raise InputError("complement() names the switch whose gate it inverts, like "
+                         "complement(Qhigh, dead=200 ns)", span)
+    dead = 0.0
+    for key, given, key_span in expr.named:
+        if key != "dead":
+            raise UnknownNameError(f"complement() has no argument {key!r}", key_span,
+                                   hint="it takes dead= (the dead time at both edges)")
+        dead = _quantity(given, value, SECOND, "complement() dead")
+        if dead < 0:
+            raise InputError("complement() dead= cannot be negative", given.span)
+    return ComplementSpec(expr.args[0].name, dead, span, expr.args[0].span)
 
 
 def duty_hint(expr: nl.Expr) -> str | None:
@@ -298,6 +328,75 @@ def compare_gate(spec: CompareSpec, hysteresis: float, stamper, switch: "Switch"
     return CompareGate(pos, neg, spec.sign, spec.level, hysteresis, spec.label)
 
 
+def complement_gate(spec: ComplementSpec, circuit, switch, depth: int = 0) -> "ScheduleGate | PwmGate":
+    """The gate of ``complement(OTHER, dead=...)`` (at compile time, when OTHER is known)."""
+    what = f"{switch.keyword} {switch.name}"
+    other = circuit.elements.get(spec.other)
+    if other is None or not hasattr(other, "spec"):
+        found = "no element" if other is None else f"a {other.keyword}, which has no gate"
+        raise UnknownNameError(f"{what}: complement() names {spec.other!r}, {found}", spec.name_span)
+    if other is switch or depth > 8:
+        raise InputError(f"{what}: complement() refers back to itself", spec.span)
+    reference = other.spec
+    if isinstance(reference, ComplementSpec):
+        reference = complement_gate(reference, circuit, other, depth + 1)
+    if isinstance(reference, PwmGate):
+        return complement_pwm(reference, spec.dead, what, spec.span)
+    if isinstance(reference, ScheduleGate):
+        return complement_schedule(reference, spec.dead, what, spec.span)
+    raise InputError(f"{what}: complement() follows a schedule() or pwm() gate; {spec.other}'s gate is a "
+                     "comparison", spec.span)
+
+
+def complement_pwm(gate: PwmGate, dead: float, what: str, span) -> PwmGate:
+    """The complement of a PWM gate with ``dead`` seconds at both edges.
+
+    The reference is closed over [delay, delay + D*T) of each period T; the
+    complement over [delay + D*T + dead, delay + T - dead): a PWM of duty
+    ``1 - D - 2*dead/T`` starting ``D*T + dead`` after the reference (taken
+    modulo T, so the pattern repeats from t = 0).
+    """
+    period = gate.period
+    duty = 1.0 - gate.duty - 2.0 * dead / period
+    if duty < 0:
+        raise InputError(f"{what}: the dead time ({dead:g} s on each edge) is longer than half the reference's "
+                         f"off time ({(1 - gate.duty) * period:g} s)", span)
+    delay = math.fmod(gate.delay + gate.duty * period + dead, period)
+    return PwmGate(gate.frequency, duty, delay)
+
+
+def complement_schedule(gate: ScheduleGate, dead: float, what: str, span) -> ScheduleGate:
+    """The complement of a schedule: it opens ``dead`` before the reference closes
+    and closes ``dead`` after the reference opens."""
+    changes = [(t - dead if s else t + dead, not s) for t, s in zip(gate.times[1:], gate.states[1:])]
+    first = not bool(gate.states[0])
+    if changes and changes[0][0] <= 0:
+        first, changes = False, changes[1:]  # the reference closes within the dead time after t = 0
+    times = [0.0] + [t for t, _ in changes]
+    if any(b <= a for a, b in zip(times, times[1:])):
+        raise InputError(f"{what}: complement() dead time ({dead:g} s) is longer than an interval of the "
+                         "reference's schedule", span)
+    return ScheduleGate(np.array(times), np.array([first] + [s for _, s in changes], dtype=bool))
+
+
+def delay_gate(gate, on_delay: float, off_delay: float, what: str, span):
+    """A time gate whose closing edges come ``on_delay`` and opening edges ``off_delay`` later (s)."""
+    if on_delay == 0.0 and off_delay == 0.0:
+        return gate
+    if isinstance(gate, PwmGate):
+        duty = gate.duty + (off_delay - on_delay) * gate.frequency
+        if not 0.0 <= duty <= 1.0:
+            raise InputError(f"{what}: the switching times do not fit the PWM period", span)
+        return PwmGate(gate.frequency, duty, gate.delay + on_delay)
+    if isinstance(gate, ScheduleGate):
+        times = [0.0] + [t + (on_delay if s else off_delay) for t, s in zip(gate.times[1:], gate.states[1:])]
+        if any(b <= a for a, b in zip(times, times[1:])):
+            raise InputError(f"{what}: the switching times are longer than an interval of the schedule", span)
+        return ScheduleGate(np.array(times), gate.states.copy())
+    raise InputError(f"{what}: turn-on and turn-off times apply to schedule(), pwm() and complement() gates; "
+                     "a comparison gate switches at its crossing", span)
+
+
 def _signal_indices(spec: CompareSpec, s, switch: "Switch") -> tuple[int, int]:
     circuit = s.circuit
     if spec.quantity == "v":
@@ -342,7 +441,7 @@ class Switch(TwoTerminal):
         Arg("on", OHM, default=10e-3, positive=True, doc="resistance when closed"),
         Arg("off", OHM, default=10e6, positive=True, doc="resistance when open"),
         Arg("gate", kind="expr", resolve=resolve_gate,
-            doc="schedule(...), pwm(...) or a comparison such as v(g) > 2.5 V"),
+            doc="schedule(...), pwm(...), complement(OTHER, dead=...) or a comparison such as v(g) > 2.5 V"),
         Arg("hysteresis", kind="expr", default=None, resolve=resolve_quantity,
             doc="width of the band around a comparison gate's level (V or A)"),
     )
@@ -360,7 +459,7 @@ class Switch(TwoTerminal):
             p["hysteresis"] = evaluate(p["hysteresis"], {})
         self.spec = p["gate"]
         self.hysteresis = self._hysteresis(p["hysteresis"])
-        self.gate = None if isinstance(self.spec, CompareSpec) else self.spec
+        self.gate = None if isinstance(self.spec, (CompareSpec, ComplementSpec)) else self.spec
 
     def _hysteresis(self, given: Quantity | None) -> float:
         """The hysteresis band (V or A), checked against what the gate compares."""
@@ -385,6 +484,8 @@ class Switch(TwoTerminal):
         self._a, self._b = s.node(self.nodes["a"]), s.node(self.nodes["b"])
         if isinstance(self.spec, CompareSpec):
             self.gate = compare_gate(self.spec, self.hysteresis, s, self)
+        elif isinstance(self.spec, ComplementSpec):
+            self.gate = complement_gate(self.spec, s.circuit, self)
 
     def corners(self, start, stop):
         if isinstance(self.gate, (ScheduleGate, PwmGate)):

@@ -35,11 +35,13 @@ Kinds:
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+from typing import Any
+
 import numpy as np
 
 from .. import netlist as nl
 from ..errors import InputError, UnitsError
-from ..expressions import evaluate
 from ..units import (
     CELSIUS_ZERO,
     KELVIN,
@@ -48,6 +50,7 @@ from ..units import (
     THERMAL_RESISTANCE,
     WATT,
     Dimension,
+    Quantity,
     describe,
 )
 from ..waveforms import Constant, Waveform
@@ -183,26 +186,38 @@ class ThermalCapacitance(ThermalPair):
 # Ladders from datasheet tables.
 
 
-def parse_stages(expr: nl.Expr, what: str) -> list[nl.Pair]:
-    """The ``stages(A: B, ...)`` pairs of a ladder's main value (shape only)."""
+@dataclass(frozen=True)
+class Stage:
+    """One pair of a ladder's table, evaluated: R and the second number, with their spans."""
+
+    r: Quantity
+    x: Quantity
+    r_span: Any = None
+    x_span: Any = None
+
+
+def resolve_stages(expr: nl.Expr, value) -> tuple[Stage, ...]:
+    """The ``stages(A: B, ...)`` pairs of a ladder's main value, each number evaluated."""
     span = getattr(expr, "span", None)
     if not (isinstance(expr, nl.Call) and expr.func == "stages"):
-        raise InputError(f"{what} takes its table as stages(R1: X1, R2: X2, ...)", span)
+        raise InputError("a ladder takes its table as stages(R1: X1, R2: X2, ...)", span)
     if expr.named or not expr.args:
-        raise InputError(f"{what}: stages() lists R: X pairs, like stages(0.12 K/W: 0.4 ms)", span)
+        raise InputError("stages() lists R: X pairs, like stages(0.12 K/W: 0.4 ms)", span)
+    out = []
     for item in expr.args:
         if not isinstance(item, nl.Pair):
-            raise InputError(f"{what}: each stages() entry is a pair R: X, like 0.12 K/W: 0.4 ms",
+            raise InputError("each stages() entry is a pair R: X, like 0.12 K/W: 0.4 ms",
                              getattr(item, "span", None))
-    return list(expr.args)
+        out.append(Stage(value(item.key), value(item.value), getattr(item.key, "span", None),
+                         getattr(item.value, "span", None)))
+    return tuple(out)
 
 
-def _stage_value(expr: nl.Expr, params, want: Dimension, what: str) -> float:
-    q = evaluate(expr, params)
+def _stage_value(q: Quantity, want: Dimension, what: str, span) -> float:
     if q.dim != want:
-        raise UnitsError(f"{what} needs {describe(want)}, got {describe(q.dim)}", getattr(expr, "span", None))
+        raise UnitsError(f"{what} needs {describe(want)}, got {describe(q.dim)}", span)
     if not q.value > 0:
-        raise InputError(f"{what} must be positive, got {q.value:g}", getattr(expr, "span", None))
+        raise InputError(f"{what} must be positive, got {q.value:g}", span)
     return q.value
 
 
@@ -216,27 +231,27 @@ class Ladder(ThermalPair):
 
     def validate(self):
         super().validate()
-        self.pairs = parse_stages(self.params["stages"], f"{self.keyword} {self.name}")
+        stages = self.params["stages"]
+        if isinstance(stages, nl.Call):  # built without a circuit
+            
+            stages = resolve_stages(stages, lambda e: evaluate(e, {}))
+        rs, xs = [], []
+        for k, st in enumerate(stages, start=1):
+            what = f"stage {k} of {self.keyword} {self.name}"
+            rs.append(_stage_value(st.r, THERMAL_RESISTANCE, f"R of {what}", st.r_span))
+            xs.append(_stage_value(st.x, self.second, f"{self.second_name} of {what}", st.x_span))
+        self.r, self.x = np.array(rs), np.array(xs)
 
     def unknowns(self):
         return tuple(Unknown(f"stage{k}", KELVIN, f"rise of the node after stage {k}")
-                     for k in range(1, len(self.pairs)))
+                     for k in range(1, len(self.r)))
 
     def branches(self):
         return [Branch(self.nodes["a"], self.nodes["b"], CONDUCTOR)]
 
-    def table(self, params) -> tuple[np.ndarray, np.ndarray]:
-        """(R_i in K/W, X_i) of every stage, evaluated with the circuit's parameters."""
-        rs, xs = [], []
-        for k, pair in enumerate(self.pairs, start=1):
-            what = f"stage {k} of {self.keyword} {self.name}"
-            rs.append(_stage_value(pair.key, params, THERMAL_RESISTANCE, f"R of {what}"))
-            xs.append(_stage_value(pair.value, params, self.second, f"{self.second_name} of {what}"))
-        return np.array(rs), np.array(xs)
-
     def chain(self, s) -> list[int]:
         """Indices of the chain's nodes: a, the inner nodes, b."""
-        inner = [s.own(f"stage{k}") for k in range(1, len(self.pairs))]
+        inner = [s.own(f"stage{k}") for k in range(1, len(self.r))]
         return [s.node(self.nodes["a"]), *inner, s.node(self.nodes["b"])]
 
 
@@ -253,11 +268,12 @@ class Foster(Ladder):
     """
 
     keyword = "foster"
-    arguments = (Arg("stages", kind="expr", doc="stages(R1: tau1, R2: tau2, ...): K/W and s, from Zth(t)"),)
+    arguments = (Arg("stages", kind="expr", resolve=resolve_stages,
+                     doc="stages(R1: tau1, R2: tau2, ...): K/W and s, from Zth(t)"),)
     summary = "datasheet transient thermal impedance: Foster ladder of R_i, tau_i pairs"
 
     def stamp(self, s):
-        r, tau = self.table(s.circuit.params)
+        r, tau = self.r, self.x
         nodes = self.chain(s)
         self._states = []
         for k in range(len(r)):
@@ -271,7 +287,7 @@ class Foster(Ladder):
 
     def heat(self, probe):
         # heat entering at a = through R_1 plus into C_1 of the first cell
-        inner = probe.unknown(self, "stage1") if len(self.pairs) > 1 else probe.node(self.nodes["b"])
+        inner = probe.unknown(self, "stage1") if len(self.r) > 1 else probe.node(self.nodes["b"])
         return (probe.node(self.nodes["a"]) - inner) / self._r + probe.rate(self._state)
 
 
@@ -287,11 +303,12 @@ class Cauer(Ladder):
     keyword = "cauer"
     second = THERMAL_CAPACITANCE
     second_name = "C"
-    arguments = (Arg("stages", kind="expr", doc="stages(R1: C1, R2: C2, ...): K/W and J/K, one pair per layer"),)
+    arguments = (Arg("stages", kind="expr", resolve=resolve_stages,
+                     doc="stages(R1: C1, R2: C2, ...): K/W and J/K, one pair per layer"),)
     summary = "thermal ladder of layers: R_i in series, C_i to ambient (Cauer)"
 
     def stamp(self, s):
-        r, c = self.table(s.circuit.params)
+        r, c = self.r, self.x
         nodes = self.chain(s)
         for k in range(len(r)):
             s.conductance(nodes[k], nodes[k + 1], 1.0 / r[k])
@@ -300,7 +317,7 @@ class Cauer(Ladder):
         self._state = s.state({nodes[0]: c[0]})
 
     def heat(self, probe):
-        inner = probe.unknown(self, "stage1") if len(self.pairs) > 1 else probe.node(self.nodes["b"])
+        inner = probe.unknown(self, "stage1") if len(self.r) > 1 else probe.node(self.nodes["b"])
         return (probe.node(self.nodes["a"]) - inner) / self._r + probe.rate(self._state)
 
 
