@@ -525,6 +525,31 @@ class Elaborator:
         return self.circuit.signal_ref(expr)
 
     # -- analyses -------------------------------------------------------------
+    def losses(self, st: nl.LossesStatement) -> None:
+        """A ``losses`` line: the ports of the efficiency and the window of the loss table."""
+        from .losses import LossRequest, check_request
+
+        if self.circuit.loss_request is not None:
+            raise InputError("a circuit has one 'losses' line", st.span)
+        request = LossRequest(span=st.span)
+        seen: set[str] = set()
+        for a in st.arguments:
+            if a.key in seen:
+                raise InputError(f"{a.key}= is given twice", a.span)
+            seen.add(a.key)
+            if a.key in ("input", "output"):
+                if not isinstance(a.value, nl.Name):
+                    raise InputError(f"losses {a.key}= names an element, like {a.key}=Vbus", a.value.span)
+                setattr(request, a.key, a.value.name)
+            elif a.key in ("from", "to"):
+                seconds = self.quantity(a.value, SECOND, f"losses {a.key}=")
+                setattr(request, "start" if a.key == "from" else "stop", seconds)
+            else:
+                raise UnknownNameError(f"losses has no setting {a.key!r}", a.span,
+                                       hint="it takes input=, output=, from= and to=")
+        check_request(self.circuit, request)
+        self.circuit.loss_request = request
+
     def analysis(self, st: nl.SimulateStatement) -> AnalysisRequest:
         spec = ANALYSES.get(st.analysis)
         if spec is None:
@@ -597,6 +622,7 @@ class Circuit:
         self.definitions: dict[str, nl.Expr] = {}  # let NAME -> its expression, as written
         self.analyses: list[AnalysisRequest] = []
         self.records: list[SignalRef] = []
+        self.loss_request = None  # a losses line: mna.losses.LossRequest
         self.frequency_records: list[SignalRef] = []  # records of simulate frequency (with z() and ratios)
         self.measures: list[nl.MeasureStatement] = []
         self.checks: list[nl.CheckStatement] = []
@@ -1077,6 +1103,7 @@ def elaborate(netlist: nl.Netlist, parameters: Mapping[str, Any] | None = None,
                                     if "." in k})
     el = circuit._elaborator
     pending_records: list[nl.RecordStatement] = []
+    pending_losses: list[nl.LossesStatement] = []
     seen_circuit: nl.CircuitStatement | None = None
     from .blocks import gather_definitions
 
@@ -1114,6 +1141,8 @@ def elaborate(netlist: nl.Netlist, parameters: Mapping[str, Any] | None = None,
             el.place(st)
         elif isinstance(st, nl.SimulateStatement):
             circuit.analyses.append(el.analysis(st))
+        elif isinstance(st, nl.LossesStatement):
+            pending_losses.append(st)
         elif isinstance(st, nl.RecordStatement):
             pending_records.append(st)
         elif isinstance(st, nl.MeasureStatement):
@@ -1129,6 +1158,8 @@ def elaborate(netlist: nl.Netlist, parameters: Mapping[str, Any] | None = None,
     for st in pending_records:
         for q in st.quantities:
             circuit._add_record(circuit.signal_ref(q))
+    for st in pending_losses:  # (so may a losses line)
+        el.losses(st)
     from .measure import validate  # measure and check lines, before anything runs
 
     validate(circuit)

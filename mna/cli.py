@@ -153,6 +153,7 @@ def cmd_run(args) -> int:
             staged = _write_results(circuit, outcome.results, out.stage, args, say)
             outputs = {key: str(out.final_path(p)) for key, p in staged.items()}
             extra = outcome.report.to_json()
+            loss_lines = _losses(circuit, outcome, extra)
             if outcome.failure is not None:
                 failure = outcome.failure
                 extra.update({"status": "failed", "failure": {"message": failure.message, "time_s": failure.time,
@@ -165,6 +166,8 @@ def cmd_run(args) -> int:
         print(f"error: cannot write results to {out_dir}: {exc}", file=sys.stderr)
         return EXIT_INPUT
     if outcome.failure is None:
+        for line in loss_lines:
+            say(line)
         for line in measurement_lines(outcome.report):
             say(line)
         for line in check_lines(outcome.report, colour=wants_colour(sys.stdout), failures_only=args.quiet):
@@ -211,6 +214,21 @@ def _study_or_settings(path: Path, out_dir: Path, args):
         raise InputError(f"--jobs needs at least 1 worker process, got {args.jobs}")
     return run_command(netlist, out_dir, jobs=args.jobs, cluster=args.cluster, plots=not args.no_plot,
                        quiet=args.quiet, stream=sys.stdout)
+
+
+def _losses(circuit, outcome, extra: dict) -> list[str]:
+    """The loss table of a file with a ``losses`` line: console lines, and its part of summary.json."""
+    from .losses import loss_report, table_lines
+    from .results import Waveforms
+
+    if circuit.loss_request is None or outcome.failure is not None:
+        return []
+    waves = next((r for r in reversed(outcome.results) if isinstance(r, Waveforms)), None)
+    if waves is None:
+        return ["  losses: no transient run to read them from"]
+    report = loss_report(circuit, waves)
+    extra["losses"] = report.to_json()
+    return table_lines(report)
 
 
 def _write_results(circuit, results: list, out_dir: Path, args, say) -> dict[str, str]:

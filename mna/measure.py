@@ -94,6 +94,7 @@ MEASUREMENTS: dict[str, _Spec] = {
     "rms": _Spec(doc="root mean square"),
     "integral": _Spec(result="times-seconds", doc="integral over time"),
     "energy": _Spec(result="energy", doc="energy(E): integral of p(E), in J"),
+    "loss": _Spec(result="rate", doc="loss(E): average loss power of a device over the window, in W"),
     "final": _Spec(doc="value at the end of the window"),
     "at": _Spec(extra=("time",), windowed=False, doc="at(x, T): value at time T"),
     "overshoot": _Spec(result="fraction", doc="percent overshoot of a step response"),
@@ -145,8 +146,13 @@ def _walk(expr: nl.Expr) -> Iterator[tuple[str, Any]]:
             yield "energy", node
 
 
+#: Measurements that take an element name first, and the quantity of that element they read.
+ELEMENT_MEASUREMENTS = {"energy": "p", "loss": "eloss"}
+
+
 def _is_energy(expr: nl.Expr) -> bool:
-    return isinstance(expr, nl.Call) and expr.func == "energy" and bool(expr.args) and isinstance(expr.args[0], nl.Name)
+    return (isinstance(expr, nl.Call) and expr.func in ELEMENT_MEASUREMENTS and bool(expr.args)
+            and isinstance(expr.args[0], nl.Name))
 
 
 def _enter(expr: nl.Expr) -> tuple[nl.Expr, ...]:
@@ -172,9 +178,9 @@ def _expressions(st: nl.MeasureStatement | nl.CheckStatement) -> list[nl.Expr]:
 
 
 def _energy_signal(call: nl.Call) -> nl.Call:
-    """``energy(R1, ...)`` -> the call ``p(R1)`` it integrates."""
+    """``energy(R1, ...)`` -> the call ``p(R1)`` it integrates; ``loss(Q1)`` -> ``eloss(Q1)``."""
     name = call.args[0]
-    return nl.Call("p", (name,), (), name.span)
+    return nl.Call(ELEMENT_MEASUREMENTS[call.func], (name,), (), name.span)
 
 
 def signals_used(circuit: "Circuit") -> list["SignalRef"]:
@@ -195,8 +201,10 @@ def recording(circuit: "Circuit") -> list["SignalRef"]:
     signal without one) plus the signals measurements need."""
     from .analyses.common import default_signals
 
+    from .losses import loss_signals
+
     refs = {r.label: r for r in (circuit.records or default_signals(circuit))}
-    for ref in signals_used(circuit):
+    for ref in [*signals_used(circuit), *loss_signals(circuit)]:
         if not ref.small_signal_only:  # z(a -> b) and ratios: for simulate frequency only
             refs.setdefault(ref.label, ref)
     return list(refs.values())
@@ -339,15 +347,19 @@ class _Calls:
 
     def _waveform_ref(self, call: nl.Call, sub: Callable[[nl.Expr], Quantity]) -> "SignalRef | _Derived":
         first = call.args[0] if call.args else None
-        if first is not None and not _is_signal(first) and call.func != "energy" and _has_signal(first):
+        if first is not None and not _is_signal(first) and call.func not in ELEMENT_MEASUREMENTS \
+                and _has_signal(first):
             return _Derived(first, self)
-        if call.func == "energy":
+        if call.func in ELEMENT_MEASUREMENTS:
             if not isinstance(first, nl.Name):
-                raise InputError("energy() takes an element name first, like energy(R1, from=2 ms)",
+                raise InputError(f"{call.func}() takes an element name first, like {call.func}(Q1, from=2 ms)",
                                  first.span if first is not None else call.span)
             element = self.circuit.elements.get(first.name)
-            if element is not None and "p" not in element.outputs:
-                raise InputError(f"energy({first.name}) needs an element with a power p({first.name}); "
+            needs = ELEMENT_MEASUREMENTS[call.func]
+            if element is not None and needs not in element.outputs:
+                what = (f"a power p({first.name})" if needs == "p"
+                        else "losses (a mosfet, igbt or diode)")
+                raise InputError(f"{call.func}({first.name}) needs an element with {what}; "
                                  f"{element.keyword} {first.name} has none", first.span)
             return self.circuit.signal_ref(_energy_signal(call))
         if first is None or not _is_signal(first):
@@ -500,7 +512,7 @@ def _expr_text(expr: nl.Expr) -> str:
 
 
 def _usage(func: str, spec: _Spec) -> str:
-    parts = ["energy(E" if func == "energy" else f"{func}(x"]
+    parts = [f"{func}(E" if func in ELEMENT_MEASUREMENTS else f"{func}(x"]
     parts += [f", {role.upper()}" for role in spec.extra]
     if spec.windowed:
         parts.append(", from=T1, to=T2")
@@ -527,6 +539,7 @@ def _result_dimension(spec: _Spec, ref: "SignalRef") -> Dimension:
         "same": ref.dimension,
         "times-seconds": ref.dimension * SECOND,
         "energy": JOULE,
+        "rate": ref.dimension / SECOND,
         "seconds": SECOND,
         "fraction": DIMENSIONLESS,
     }[spec.result]
@@ -541,6 +554,11 @@ def _compute(func: str, time: np.ndarray, values: np.ndarray, extras: dict[str, 
         return simple[func](time, values, start=start, stop=stop)
     if func == "at":
         return wm.value_at(time, values, extras["time"])
+    if func == "loss":  # a cumulative energy: its rise over the window, per second
+        t, v = wm.window(time, values, start=start, stop=stop)
+        if not t[-1] > t[0]:
+            raise _NoValue("the window has no length")
+        return float((v[-1] - v[0]) / (t[-1] - t[0]))
     # The window is cut first, so a MeasurementError after that is about the
     # waveform (never crosses, no step), not about the request.
     t, v = wm.window(time, values, start=start, stop=stop)

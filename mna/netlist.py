@@ -170,6 +170,14 @@ class CircuitStatement:
 
 
 @dataclass(slots=True)
+class LossesStatement:
+    """``losses input=Vbus output=Rload from=10 ms to=20 ms``: ask for the loss table."""
+
+    arguments: tuple[Argument, ...]
+    span: Span
+
+
+@dataclass(slots=True)
 class SimulateStatement:
     analysis: str
     arguments: tuple[Argument, ...]
@@ -338,6 +346,7 @@ Statement = Union[
     LetStatement,
     CircuitStatement,
     SimulateStatement,
+    LossesStatement,
     RecordStatement,
     MeasureStatement,
     CheckStatement,
@@ -525,6 +534,12 @@ class _Builder(Transformer):
         analysis, *args = children
         return SimulateStatement(str(analysis), tuple(args), self.span(analysis), self.span(analysis))
 
+    def losses_stmt(self, children):
+        line = self._first
+        src = self._lines[line - 1] if 0 < line <= len(self._lines) else None
+        column = (len(src) - len(src.lstrip()) + 1) if src else 1
+        return LossesStatement(tuple(children), Span(line, column, column + 6, self._file, src))
+
     def record_stmt(self, children):
         return RecordStatement(tuple(children), span_of(children[0]))
 
@@ -669,7 +684,7 @@ _FAST = re.compile(
 _FAST_ARG = re.compile(rf"([a-z][a-z0-9]*(?:-[a-z0-9]+)*)[ \t]*=[ \t]*({_Q})")
 _STATEMENT_WORDS = frozenset({"let", "circuit", "simulate", "record", "measure", "check",
                               "block", "blocks", "parameter", "sweep", "spread", "monte-carlo", "corners",
-                              "required-yield"})
+                              "required-yield", "losses"})
 
 
 def _fast_element(chunk: _Chunk, file: str | None, lines: list[str]) -> ElementStatement | None:

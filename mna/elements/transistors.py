@@ -52,7 +52,8 @@ Results: ``v i p`` as any two-terminal element (``i`` includes the diode
 and the output capacitance), ``state`` (1 on), ``Tj`` (K), ``pcond`` (W:
 channel and diode conduction, ``v * (i_channel + i_diode)``) and ``esw`` (J:
 switching energy so far, a staircase that steps at the first time point
-after each change of state).
+after each change of state) and ``eloss`` (J: conduction and switching
+energy so far; ``loss(Q1)`` in a check is its average power).
 """
 
 from __future__ import annotations
@@ -218,11 +219,13 @@ class Mosfet(TwoTerminal):
             doc="junction temperature without a junction= node (default: the ambient)"),
     )
     outputs = {"v": VOLT, "i": AMPERE, "p": WATT, "state": DIMENSIONLESS, "Tj": KELVIN,
-               "pcond": WATT, "esw": JOULE}
+               "pcond": WATT, "esw": JOULE, "eloss": JOULE}
     summary = "power MOSFET: gated channel with R_DS(on)(Tj), timing, body diode, C_oss, switching energy"
 
     #: An IGBT sets this to its knee voltage; a MOSFET conducts both ways from 0 V.
     forward_only = False
+    #: What the loss table reads (mna.losses): part -> (output, "power" in W or "energy" so far in J).
+    loss_parts = {"conduction": ("pcond", "power"), "switching": ("esw", "energy")}
 
     def validate(self):
         p = self.params
@@ -329,6 +332,8 @@ class Mosfet(TwoTerminal):
             return self.across(probe) * self.conduction(probe)
         if quantity == "esw":
             return self._column(probe, 1)
+        if quantity == "eloss":
+            return sum(self.loss_energies(probe).values())
         return super().output(quantity, probe)
 
     def loss_energies(self, probe) -> dict[str, np.ndarray]:
