@@ -42,7 +42,8 @@ time: ``schedule``, ``pwm``, ``complement``) with datasheet behaviour:
   estimate from the datasheet, *not drawn from the circuit*: the ideal
   channel changes state instantly. It heats the junction as a rectangular
   pulse lasting the transition (``rise-time``/``fall-time``, at least
-  10 ns), whose ends are events the solver lands on.
+  10 ns) from the first time point after the change; the solver lands on
+  the pulse's end.
 - **Junction.** With ``junction=NODE`` (a thermal node) the device's
   conduction and switching losses flow into that node as heat, and the
   on-resistance and diode drop follow its temperature. Without it the
@@ -630,14 +631,16 @@ class TransistorBatch(NonlinearBatch):
     def update_events(self, t, x, state):
         if t < state.t_seen:
             raise ValueError(f"transistor states asked for t = {t:g} s after t = {state.t_seen:g} s")
+        # A heat pulse starting or ending changes only the heat into a junction:
+        # it is logged but not reported as an event, so the engine does not
+        # restart (the solver lands on each pulse end through event_time).
         changed = False
         v = self.va(x) - self.vb(x)
         if state.pending and t > state.t_seen:
-            changed |= self._start_pulses(t, v, self.junction(x), state)
+            self._start_pulses(t, v, self.junction(x), state)
         ended = (state.pulse_end <= t * (1 + 1e-12)) & (state.pulse_power > 0)
         if np.any(ended):
             state.pulse_power[ended] = 0.0
-            changed = True
         new = self.gate_states(t)
         flip = new != state.closed
         if np.any(flip):
@@ -670,8 +673,8 @@ class TransistorBatch(NonlinearBatch):
                 started = True
         logged = bool(state.pending)
         state.pending = []
-        if logged and not started:
-            state.record(t)  # the energies, without a change of the equations
+        if logged:
+            state.record(t)  # the energies so far
         return started
 
     def event_time(self, t0, x0, t1, x1, state):
