@@ -47,10 +47,15 @@ import numpy as np
 from scipy.constants import Boltzmann, elementary_charge
 
 from ..errors import InputError
-from ..units import AMPERE, DIMENSIONLESS, FARAD, KELVIN, OHM, VOLT
+from ..units import AMPERE, COULOMB, DIMENSIONLESS, FARAD, JOULE, KELVIN, OHM, SECOND, VOLT, WATT
 from .base import CONDUCTOR, Arg, Branch, NonlinearBatch, Unknown
 from .batching import BranchPattern
 from .passive import TwoTerminal
+from .recovery import fit_recovery
+
+#: The recovery model's figures may miss the datasheet's Qrr and trr by this much.
+RECOVERY_FIT_TOLERANCE = 0.02
+RECOVERY_ARGS = ("recovery-charge", "recovery-time", "recovery-current", "recovery-slope")
 
 #: Conductance (S) across every junction: keeps a reverse-biased junction's
 #: row from vanishing (common practice; 1e-12 S adds 12 pA of leakage at
@@ -157,8 +162,19 @@ class Diode(TwoTerminal):
         # from room temperature; below about 1 K its thermal voltage also
         # leaves the range the solver resolves.
         Arg("temperature", KELVIN, default=DEFAULT_TEMPERATURE, positive=True, minimum=10.0, maximum=1000.0,
+            absolute=True,
             doc="junction temperature (default 298.15 K, 25 degC)"),
+        Arg("recovery-charge", COULOMB, default=None, positive=True,
+            doc="reverse recovery charge Qrr of the datasheet (turns on the recovery model)"),
+        Arg("recovery-time", SECOND, default=None, positive=True, doc="reverse recovery time trr of the datasheet"),
+        Arg("recovery-current", AMPERE, default=None, positive=True,
+            doc="forward current IF of the datasheet's recovery test"),
+        Arg("recovery-slope", AMPERE / SECOND, default=None, positive=True,
+            doc="-di/dt of the datasheet's recovery test (A/us)"),
     )
+    outputs = {"v": VOLT, "i": AMPERE, "p": WATT, "pcond": WATT, "prec": WATT, "eloss": JOULE}
+    #: What the loss table reads (mna.losses): part -> (output, "power" in W).
+    loss_parts = {"conduction": ("pcond", "power"), "recovery": ("prec", "power")}
     summary = "junction diode (Shockley) with series resistance, capacitance and optional breakdown"
 
     def validate(self):
@@ -168,6 +184,28 @@ class Diode(TwoTerminal):
                 f"diode {self.name}: ideality={n:g} is outside 0.5 to 10 (a silicon junction is 1 to 2)",
                 self.span_of("ideality"),
             )
+        self.lifetime = self.transit = None
+        given = [k for k in RECOVERY_ARGS if self.params.get(k) is not None]
+        if given:
+            missing = [k for k in RECOVERY_ARGS if k not in given]
+            if missing:
+                raise InputError(f"diode {self.name}: reverse recovery needs the datasheet's Qrr and trr with "
+                                 f"their test point; add {', '.join(m + '=' for m in missing)}",
+                                 self.span_of(given[0]))
+            p = self.params
+            tau, tm, miss = fit_recovery(p["recovery-charge"], p["recovery-time"], p["recovery-current"],
+                                         p["recovery-slope"])
+            if miss > RECOVERY_FIT_TOLERANCE:
+                raise InputError(
+                    f"diode {self.name}: no charge-control recovery gives Qrr = {p['recovery-charge']:.3g} C "
+                    f"together with trr = {p['recovery-time']:.3g} s at IF = {p['recovery-current']:.3g} A and "
+                    f"-di/dt = {p['recovery-slope']:.3g} A/s (the closest misses by {100 * miss:.0f} %); check "
+                    "the units and that the four values belong to one datasheet test", self.span_of(given[0]))
+            self.lifetime, self.transit = tau, tm
+
+    @property
+    def recovers(self) -> bool:
+        return self.lifetime is not None
 
     # -- derived values ----------------------------------------------------------
     @property
@@ -193,9 +231,12 @@ class Diode(TwoTerminal):
         return [Branch(self.nodes["a"], self.nodes["b"], CONDUCTOR)]
 
     def unknowns(self):
+        out = ()
         if self.params["resistance"] > 0:
-            return (Unknown("junction", VOLT, "potential between the series resistance and the junction"),)
-        return ()
+            out += (Unknown("junction", VOLT, "potential between the series resistance and the junction"),)
+        if self.recovers:
+            out += (Unknown("stored", COULOMB, "charge stored in the base (reverse recovery)"),)
+        return out
 
     def stamp(self, s):
         a, b = s.node(self.nodes["a"]), s.node(self.nodes["b"])
@@ -209,6 +250,10 @@ class Diode(TwoTerminal):
         if c > 0:
             s.capacitance(p, b, c)
             self._cstate = s.state({p: c, b: -c})
+        self._qm = -1
+        if self.recovers:
+            self._qm = s.own("stored")
+            s.C(self._qm, self._qm, 1.0)  # d qM/dt in its own row
 
     # -- results -------------------------------------------------------------------
     def current(self, probe):
@@ -216,9 +261,28 @@ class Diode(TwoTerminal):
             return (probe.node(self.nodes["a"]) - probe.unknown(self, "junction")) / self.params["resistance"]
         v = self.across(probe)
         i, _ = junction_current(v, *(np.float64(p) for p in self.junction_law()))
+        if self.recovers:  # the charge-control current replaces the Shockley part
+            isat, nvt = self.params["saturation-current"], self.nvt
+            shockley, _ = forward_current(v, np.float64(isat), np.float64(nvt))
+            q_e = (self.lifetime + self.transit) * (shockley - JUNCTION_LEAK * v)
+            i = i - shockley + JUNCTION_LEAK * v + (q_e - probe.unknown(self, "stored")) / self.transit
         if self._cstate is not None:
             i = i + probe.rate(self._cstate)
         return i
+
+    def output(self, quantity, probe):
+        if quantity in ("pcond", "prec", "eloss"):
+            p = self.across(probe) * self.current(probe)
+            forward = self.current(probe) >= 0
+            if quantity == "pcond":
+                return np.where(forward, p, 0.0)
+            if quantity == "prec":
+                return np.where(forward, 0.0, p)
+            t = np.asarray(probe.time, dtype=float)
+            out = np.zeros_like(p)
+            out[1:] = np.cumsum(0.5 * (p[1:] + p[:-1]) * np.diff(t))
+            return out
+        return super().output(quantity, probe)
 
 
 class DiodeBatch(NonlinearBatch):
@@ -236,14 +300,56 @@ class DiodeBatch(NonlinearBatch):
                                                                   self.nbr_vt), np.inf)
         self.f_rows = self.pattern.f_rows
         self.jf_rows, self.jf_cols = self.pattern.jf_rows, self.pattern.jf_cols
+        self._recovery(elements)
+
+    def _recovery(self, elements) -> None:
+        """Rows and Jacobian entries of the recovering diodes' stored charges (Lauritzen & Ma)."""
+        rec = [k for k, e in enumerate(elements) if e.recovers]
+        self.rec = np.array(rec, dtype=np.int64)
+        if not rec:
+            return
+        e = [elements[k] for k in rec]
+        self.rec_scale = np.array([x.lifetime + x.transit for x in e])  # qE = Isat (tau + TM) (exp - 1)
+        self.rec_tm = np.array([x.transit for x in e])
+        self.rec_tau = np.array([x.lifetime for x in e])
+        qm = np.array([x._qm for x in e], dtype=np.int64)
+        p = np.array([x._p for x in e], dtype=np.int64)
+        k = np.array([x._k for x in e], dtype=np.int64)
+        self.rec_qm = qm
+        self.rec_mask = np.zeros(len(elements), dtype=bool)
+        self.rec_mask[rec] = True
+        # extra residual rows (the stored charges) and Jacobian entries
+        self.f_rows = np.concatenate([self.f_rows, qm])
+        rows = np.concatenate([p, k, qm, qm, qm])
+        cols = np.concatenate([qm, qm, p, k, qm])
+        self._rec_keep = (rows >= 0) & (cols >= 0)
+        self.jf_rows = np.concatenate([self.jf_rows, rows[self._rec_keep]])
+        self.jf_cols = np.concatenate([self.jf_cols, cols[self._rec_keep]])
 
     def evaluate(self, x, t):
         v = self.pattern.across(x)
         i, g = forward_current(v, self.isat, self.nvt)
+        if self.rec.size:
+            # i = (qE - qM)/TM with qE = Isat (tau + TM) (exp(v/nVt) - 1)
+            shock = i[self.rec] - JUNCTION_LEAK * v[self.rec]
+            dshock = g[self.rec] - JUNCTION_LEAK
+            q_e, dq_e = self.rec_scale * shock, self.rec_scale * dshock
+            q_m = x[self.rec_qm]
+            i = i.copy()
+            g = g.copy()
+            i[self.rec] = (q_e - q_m) / self.rec_tm + JUNCTION_LEAK * v[self.rec]
+            g[self.rec] = dq_e / self.rec_tm + JUNCTION_LEAK
         if self.any_breakdown:
             i_bd, g_bd = breakdown_current(v, self.vbr, self.ibr, self.nbr_vt)
             i, g = i + i_bd, g + g_bd
-        return self.pattern.f_values(i), self.pattern.jf_values(g), self.empty, self.empty
+        f = self.pattern.f_values(i)
+        jf = self.pattern.jf_values(g)
+        if self.rec.size:
+            inv_tm = 1.0 / self.rec_tm
+            f = np.concatenate([f, -(q_e - q_m) * inv_tm + q_m / self.rec_tau])
+            extra = np.concatenate([-inv_tm, inv_tm, -dq_e * inv_tm, dq_e * inv_tm, inv_tm + 1.0 / self.rec_tau])
+            jf = np.concatenate([jf, extra[self._rec_keep]])
+        return f, jf, self.empty, self.empty
 
     def junction_voltages(self, x: np.ndarray) -> np.ndarray:
         return self.pattern.across(x)
