@@ -42,7 +42,7 @@ time: ``schedule``, ``pwm``, ``complement``) with datasheet behaviour:
   estimate from the datasheet, *not drawn from the circuit*: the ideal
   channel changes state instantly. It heats the junction as a rectangular
   pulse lasting the transition (``rise-time``/``fall-time``, at least
-  10 ns) from the first time point after the change; the solver lands on
+  0.5 us) from the first time point after the change; the solver lands on
   the pulse's end.
 - **Junction.** With ``junction=NODE`` (a thermal node) the device's
   conduction and switching losses flow into that node as heat, and the
@@ -97,8 +97,14 @@ from .switches import (
 )
 from .thermal import ambient_temperature
 
-#: Shortest heat pulse of a switching energy (s).
-MIN_HEAT_PULSE = 10e-9
+#: Shortest heat pulse of a switching energy (s): long enough not to force tiny
+#: steps, far shorter than the first time constant of any datasheet Zth (~10 us).
+MIN_HEAT_PULSE = 0.5e-6
+#: Largest change of a junction temperature (K) in one Newton iteration.
+MAX_TEMPERATURE_STEP = 25.0
+#: Junction temperatures (K) outside this range are taken at its ends by the
+#: device law (while Newton iterates, or in a device far past its ratings).
+JUNCTION_RANGE = (150.0, 700.0)
 #: Width (V) over which an IGBT's forward knee is smoothed.
 KNEE_SMOOTHING = 0.02
 #: The on-resistance never falls below this fraction of its datasheet value
@@ -548,6 +554,8 @@ class TransistorBatch(NonlinearBatch):
         self.w_on = np.array([max(q["rise-time"], MIN_HEAT_PULSE) for q in p])
         self.w_off = np.array([max(q["fall-time"], MIN_HEAT_PULSE) for q in p])
         self.heats = j >= 0
+        self.any_junction = bool(np.any(self.heats))
+        self.j_rows = np.unique(j[j >= 0])
         # time gates
         gates = [e.gate for e in elements]
         self.gates = gates
@@ -591,7 +599,8 @@ class TransistorBatch(NonlinearBatch):
 
     # -- equations -------------------------------------------------------------------------
     def junction(self, x: np.ndarray) -> np.ndarray:
-        return self.t_fixed + self.tj_rise(x)
+        """Junction temperatures (K), held within JUNCTION_RANGE for the device law."""
+        return np.clip(self.t_fixed + self.tj_rise(x), *JUNCTION_RANGE)
 
     def evaluate(self, x, t, state):
         v = self.va(x) - self.vb(x)
@@ -614,6 +623,19 @@ class TransistorBatch(NonlinearBatch):
         return f, jf, self.empty, self.empty
 
     def limit(self, x_new, x_old):
+        if self.any_junction:
+            # Newton may not move a junction by more than MAX_TEMPERATURE_STEP per
+            # iteration: a first guess with the full channel current at the
+            # blocked voltage would otherwise heat it by megakelvins and the
+            # temperature-dependent resistance would never settle.
+            # Only the junction temperatures are held back: the electrical
+            # unknowns take their full step, so the next iteration sees the
+            # heat at the right operating point.
+            step = x_new[self.j_rows] - x_old[self.j_rows]
+            if np.any(np.abs(step) > MAX_TEMPERATURE_STEP):
+                x_new = x_new.copy()
+                x_new[self.j_rows] = x_old[self.j_rows] + np.clip(step, -MAX_TEMPERATURE_STEP,
+                                                                  MAX_TEMPERATURE_STEP)
         if not self.any_diode:
             return x_new
         v_new = -(self.va(x_new) - self.vb(x_new))
