@@ -48,7 +48,19 @@ from . import netlist as nl
 from . import waveform_math as wm
 from .errors import InputError, MeasurementError, SimulationError, UnitsError, UnknownNameError
 from .expressions import CONSTANTS, FUNCTIONS, Samples, children, evaluate, is_quantity_call, walk
-from .units import DIMENSIONLESS, JOULE, SECOND, Dimension, Quantity, describe, format_si, unit_symbol
+from .units import (
+    CELSIUS,
+    CELSIUS_ZERO,
+    DIMENSIONLESS,
+    JOULE,
+    KELVIN,
+    SECOND,
+    Dimension,
+    Quantity,
+    describe,
+    format_si,
+    unit_symbol,
+)
 from .measure_frequency import FREQUENCY_MEASUREMENTS, NoFrequencyValue, frequency_call
 from .values import RPM, SignalRef, stored_per_si
 
@@ -882,6 +894,8 @@ def _literal_hint(expr: nl.Expr) -> str:
         unit = expr.text.lstrip("+-0123456789.eE ").strip()
         if unit in ("rpm", "%"):
             return unit
+        if unit in CELSIUS:
+            return "°C"
     return ""
 
 
@@ -908,6 +922,8 @@ def _show(value: float, dim: Dimension, hint: str = "", *, signed: bool = False,
         return f"{sign}{math.degrees(value):.{digits}g} deg"
     if hint == "dB" and dim == DIMENSIONLESS:
         return f"{sign}{value:.{digits}g} dB"
+    if hint == "°C" and dim == KELVIN:  # a margin is a difference: kelvins
+        return sign + format_si(value, "K", digits) if signed else f"{value - CELSIUS_ZERO:.{digits}g} °C"
     symbol = hint or unit_symbol(dim)
     if symbol in ("", "1/s"):
         return f"{sign}{value:.{digits}g}" + (f" {symbol}" if symbol else "")

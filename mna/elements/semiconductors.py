@@ -173,8 +173,13 @@ class Diode(TwoTerminal):
             doc="-di/dt of the datasheet's recovery test (A/us)"),
     )
     outputs = {"v": VOLT, "i": AMPERE, "p": WATT, "pcond": WATT, "prec": WATT, "eloss": JOULE}
-    #: What the loss table reads (mna.losses): part -> (output, "power" in W).
-    loss_parts = {"conduction": ("pcond", "power"), "recovery": ("prec", "power")}
+
+    @property
+    def loss_parts(self) -> dict[str, tuple[str, str]]:
+        """What the loss table reads (mna.losses): part -> (output, "power" in W)."""
+        if self.recovers:
+            return {"conduction": ("pcond", "power"), "recovery": ("prec", "power")}
+        return {"conduction": ("pcond", "power")}
     summary = "junction diode (Shockley) with series resistance, capacitance and optional breakdown"
 
     def validate(self):
