@@ -53,6 +53,7 @@ from .. import limits
 from ..units import AMPERE, KELVIN, VOLT
 from .common import compute_signal, dc_leak, default_signals, plan, prepare, require_finite, unit_label
 from .dc import solve_dc
+from .settings import DEFAULT_TOLERANCE
 from .settings import TransientSettings as _Settings
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -63,8 +64,9 @@ if TYPE_CHECKING:  # pragma: no cover
 #: finds values consistent with the charges and fluxes (a capacitor across
 #: a source charges at once; a switch voltage jumps when it opens).
 JUMP_FRACTION = 1e-9
-#: Absolute floor of the local error on temperatures (K): a junction's rise is
-#: worth resolving to a millikelvin, not to the microvolt floor of voltages.
+#: Absolute floor of the local error on temperatures (K) at the default
+#: tolerance= (it scales with tolerance=): a junction's rise is worth resolving
+#: to a millikelvin, not to the microvolt floor of voltages.
 TEMPERATURE_TOLERANCE = 1e-3
 
 #: Newton iterations allowed from a remembered guess before the jump solve
@@ -177,7 +179,8 @@ class _Run:
         atol_x = np.where(np.array([d == VOLT for d in system.dims]), cfg.voltage_tolerance,
                           np.where(np.array([d == AMPERE for d in system.dims]), cfg.current_tolerance,
                                    cfg.voltage_tolerance))
-        atol_x[np.array([d == KELVIN for d in system.dims], dtype=bool)] = TEMPERATURE_TOLERANCE
+        atol_x[np.array([d == KELVIN for d in system.dims], dtype=bool)] = \
+            TEMPERATURE_TOLERANCE * cfg.tolerance / DEFAULT_TOLERANCE
         self.q_atol = absC @ atol_x
         q_rows = set(np.flatnonzero(np.diff(system.C.tocsr().indptr)).tolist())
         for slot in system.batches:
