@@ -197,3 +197,10 @@ def test_a_thermal_node_without_a_path_is_a_topology_error():
 def test_an_electrical_node_cannot_be_a_thermal_node():
     with pytest.raises(InputError, match="thermal node"):
         mna.parse("resistor R1 a -> gnd 1 ohm\nthermal-resistance R2 a -> ambient 1 K/W\n")
+
+
+def test_a_diode_takes_its_junction_temperature_in_celsius():
+    # V = n Vt ln(I/Is + 1), Vt = k T / q at 125 °C = 398.15 K (SI Brochure §2.3.1)
+    c = mna.parse("current-source I1 gnd -> a 1 mA\ndiode D1 a -> gnd temperature=125 °C\n")
+    vt = 1.380649e-23 * 398.15 / 1.602176634e-19
+    assert c.dc()["v(a)"] == pytest.approx(vt * np.log(1e-3 / 1e-14 + 1), rel=1e-6)
