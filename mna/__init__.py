@@ -46,6 +46,7 @@ _EXPORTS = {
     "corners": "mna.studies",
     "run_study": "mna.studies",
     "Waveforms": "mna.results",
+    "FrequencyResponse": "mna.results",
 }
 
 
@@ -72,6 +73,7 @@ __all__ = [
     "Branch",
     "Circuit",
     "Element",
+    "FrequencyResponse",
     "InputError",
     "MnaError",
     "NonlinearBatch",
