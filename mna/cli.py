@@ -268,8 +268,16 @@ def _write_frequency_results(circuit, results: list, out_dir: Path, args, say, o
     """CSV (magnitude, dB, phase) and Bode PNG of each frequency analysis."""
     from .results import FrequencyResponse
 
+    from dataclasses import replace
+
+    from .analyses.common import default_signals
+
     responses = [r for r in results if isinstance(r, FrequencyResponse)]
+    shown = [r.label for r in (circuit.frequency_records or default_signals(circuit))]
     for k, res in enumerate(responses, start=1):
+        # What record names (or the default set), not the extra quantities kept for measurements.
+        keep = [label for label in shown if label in res.signals]
+        res = replace(res, signals={x: res.signals[x] for x in keep}, units={x: res.units[x] for x in keep})
         suffix = "" if len(responses) == 1 else f"-{k}"
         outputs[f"frequency-csv{suffix}"] = str(res.to_csv(out_dir / f"frequency{suffix}.csv"))
         if not args.no_plot and res.frequency.size > 1 and res.labels():

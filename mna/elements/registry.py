@@ -39,6 +39,7 @@ BUILTIN = {
     "choke": "mna.elements.magnetics:Choke",
     "solenoid": "mna.elements.magnetics:Solenoid",
     "switch": "mna.elements.switches:Switch",
+    "constant-power": "mna.elements.power_load:ConstantPower",
     "ambient-temperature": "mna.elements.thermal:AmbientTemperature",
     "thermal-resistance": "mna.elements.thermal:ThermalResistance",
     "thermal-capacitance": "mna.elements.thermal:ThermalCapacitance",
