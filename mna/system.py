@@ -26,6 +26,7 @@ import numpy as np
 import scipy.sparse as sp
 
 from .elements.base import REFERENCE, Element, NonlinearBatch
+from .errors import LimitError
 from .units import AMPERE, ANGULAR_SPEED, KELVIN, VOLT, Dimension
 from .waveforms import BatchEvaluator, Waveform
 
@@ -442,18 +443,26 @@ class System:
 
     def corners(self, start: float, stop: float) -> np.ndarray:
         """Every waveform corner and event time in (start, stop], sorted (s)."""
-        pts = [e.corners(start, stop) for e in self.circuit.elements.values()]
+        pts = [_named(e, e.corners, start, stop) for e in self.circuit.elements.values()]
         pts += [slot.batch.corners(start, stop) for slot in self.batches]
         pts = [p for p in pts if len(p)]
         return np.unique(np.concatenate(pts)) if pts else np.empty(0)
 
     def jumps(self, start: float, stop: float) -> np.ndarray:
         """Corners in (start, stop] where a source value jumps, sorted (s)."""
-        pts = [p for p in (e.jumps(start, stop) for e in self.circuit.elements.values()) if len(p)]
+        pts = [p for p in (_named(e, e.jumps, start, stop) for e in self.circuit.elements.values()) if len(p)]
         return np.unique(np.concatenate(pts)) if pts else np.empty(0)
 
     def describe_unknowns(self, indices) -> tuple[str, ...]:
         return tuple(self.names[i] for i in indices)
+
+
+def _named(element, times, start: float, stop: float) -> np.ndarray:
+    """``times(start, stop)`` of an element; a work limit it meets names the element and its line."""
+    try:
+        return times(start, stop)
+    except LimitError as exc:
+        raise LimitError(f"{element.keyword} {element.name}: {exc.message}", element.span, hint=exc.hint) from None
 
 
 @dataclass

@@ -50,6 +50,7 @@ def test_a_pwm_with_more_edges_than_the_limit_is_refused_before_its_edges_are_bu
         mna.parse(text).run()
     # 1e9 periods of 4 corners each (rise start and end, fall start and end)
     assert "4e+09 edges" in info.value.message and "edge-limit=" in info.value.hint
+    assert info.value.message.startswith("voltage-source V1:") and info.value.line == 1
 
 
 def test_an_error_controlled_run_stops_at_the_step_limit_with_its_partial_results():
@@ -118,3 +119,15 @@ def test_a_plain_number_before_a_hyphenated_setting_has_no_unit():
     settings = circuit.analyses[0].settings
     assert settings["tolerance"] == 0.01 and settings["max-step"] == 1e-6
     assert settings["step-limit"] == 1e6 and settings["point-limit"] == 2e6
+
+
+def test_a_limit_reached_in_a_run_writes_the_partial_results_and_exits_3(tmp_path, capsys):
+    from mna.cli import main
+
+    path = tmp_path / "rl.mna"
+    path.write_text(RL.format(until="10 ms", extra="start=rest step-limit=40"), encoding="utf-8")
+    code = main(["run", str(path), "--out", str(tmp_path / "out"), "--no-plot", "--quiet"])
+    err = capsys.readouterr().err
+    assert code == 3 and "step limit" in err and "step-limit=" in err
+    rows = (tmp_path / "out" / "waveforms.csv").read_text().splitlines()
+    assert rows[0] == "time,i(L1)" and len(rows) > 10
