@@ -227,9 +227,20 @@ def frequency_recording(circuit: "Circuit") -> list["SignalRef"]:
     plus the quantities the measurements read."""
     from .analyses.common import default_signals
 
-    refs = {r.label: r for r in (circuit.frequency_records or default_signals(circuit))}
-    for ref in signals_used(circuit):
-        refs.setdefault(ref.label, ref)
+    from .analyses.frequency import stimuli
+
+    # Without record lines: every node voltage and current when a source has a
+    # stimulus; with none, only the impedances the measurements read.
+    default = default_signals(circuit) if stimuli(circuit) else []
+    refs = {r.label: r for r in (circuit.frequency_records or default)}
+    for st in _statements(circuit):
+        for expr in _expressions(st):
+            for node in walk(expr):
+                if isinstance(node, nl.Call) and node.func in FREQUENCY_MEASUREMENTS and node.args:
+                    first = node.args[0]
+                    if isinstance(first, nl.Call) or (isinstance(first, nl.BinaryOp) and first.op == "/"):
+                        ref = circuit.signal_ref(first)
+                        refs.setdefault(ref.label, ref)
     return list(refs.values())
 
 

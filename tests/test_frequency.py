@@ -527,3 +527,23 @@ def test_dc_machine_with_a_fan_load_at_its_operating_speed():
     w = omega(res)
     zm = r + 1j * w * 1.2e-3 + k**2 / (b + 2 * c_fan * w0 + 1j * w * 2e-4)
     close(res["z(a -> gnd)"], zm * 10 / (zm + 10), tol=1e-7)  # w0 from brentq to 1e-12 rad/s
+
+
+def test_transient_checks_do_not_ask_the_frequency_analysis_for_their_quantities():
+    # No stimulus anywhere: the frequency analysis computes only the impedance
+    # its measurement reads, while the transient check reads v(out) over time.
+    text = """
+    voltage-source V1 in -> gnd 12 V
+    resistor  R1 in -> out 1 kohm
+    capacitor C1 out -> gnd 100 nF
+    simulate transient until=1 ms
+    simulate frequency from=10 Hz to=100 kHz per-decade=10
+    check max(v(out)) < 13 V
+    check largest(z(out -> gnd)) within 1e-6 % of 1 kohm / sqrt(1 + (2*pi*10 Hz * 100 us)^2)
+    """
+    from mna.measure import run_and_check
+
+    outcome = run_and_check(parse(text))
+    assert outcome.failure is None
+    assert [c.status for c in outcome.report.checks] == ["pass", "pass"]
+    assert outcome.results[1].labels() == ["z(out -> gnd)"]
