@@ -82,12 +82,31 @@ def overhead() -> None:
           f"workers {cpu_pool * 1e3:6.2f} ms   ratio {cpu_pool / cpu_alone:5.2f}")
 
 
+def pool_start(variant) -> float:
+    """Wall time to start a 2-worker pool with the study installed and stop it (no runs)."""
+    from concurrent.futures import ProcessPoolExecutor
+
+    from mna.runner import _install
+
+    def start_stop():
+        with ProcessPoolExecutor(max_workers=2, initializer=_install, initargs=(variant,)) as pool:
+            list(pool.map(abs, [1, 2]))
+
+    return best_of(3, start_stop)
+
+
 def speedup() -> None:
     study = build_study(parse_file(ROOT / "circuits" / "relay_snubber_spread.mna"))
+    cpu_serial = cpu_of(lambda: run_study(study, jobs=1))
     one = best_of(2, lambda: run_study(study, jobs=1))
     two = best_of(2, lambda: run_study(study, jobs=2))
     print(f"2. {len(study.runs)} relay-snubber runs: 1 worker {one:.2f} s, 2 workers {two:.2f} s: "
           f"speed-up {one / two:.2f}x (target >= 1.7x on 2 cores; this machine has {os.cpu_count()} cores)")
+    start = pool_start(Variant.of(study))
+    bound = cpu_serial / (cpu_serial / 2 + start)
+    print(f"   on idle cores the pool can reach at most {bound:.2f}x: {cpu_serial:.2f} s of CPU shared by 2 workers "
+          f"plus {start * 1e3:.0f} ms to start and stop them (load average now "
+          f"{os.getloadavg()[0]:.1f}: a figure far below this bound is other jobs taking the cores)")
     return study, one
 
 
