@@ -109,14 +109,14 @@ class Stamper:
         return self.own_index[(element, local)]
 
     # -- linear stamps -------------------------------------------------------
-    def G(self, row: int, col: int, value: float) -> None:
+    def g_entry(self, row: int, col: int, value: float) -> None:
         """Add ``value`` at (row, col) of G, the linear part of f."""
         if row >= 0 and col >= 0 and value != 0.0:
             self._g[0].append(row)
             self._g[1].append(col)
             self._g[2].append(value)
 
-    def C(self, row: int, col: int, value: float) -> None:
+    def c_entry(self, row: int, col: int, value: float) -> None:
         """Add ``value`` at (row, col) of C, the linear part of q."""
         if row >= 0 and col >= 0 and value != 0.0:
             self._c[0].append(row)
@@ -125,17 +125,17 @@ class Stamper:
 
     def conductance(self, a: int, b: int, g: float) -> None:
         """A conductance ``g`` (S) between nodes a and b."""
-        self.G(a, a, g)
-        self.G(b, b, g)
-        self.G(a, b, -g)
-        self.G(b, a, -g)
+        self.g_entry(a, a, g)
+        self.g_entry(b, b, g)
+        self.g_entry(a, b, -g)
+        self.g_entry(b, a, -g)
 
     def capacitance(self, a: int, b: int, c: float) -> None:
         """A capacitance ``c`` (F) between nodes a and b."""
-        self.C(a, a, c)
-        self.C(b, b, c)
-        self.C(a, b, -c)
-        self.C(b, a, -c)
+        self.c_entry(a, a, c)
+        self.c_entry(b, b, c)
+        self.c_entry(a, b, -c)
+        self.c_entry(b, a, -c)
 
     def source(self, row: int, coef: float, waveform: Waveform) -> None:
         """Independent term: ``f[row] -= coef * waveform(t)``."""

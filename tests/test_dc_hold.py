@@ -28,8 +28,8 @@ class Integrator(Element):
 
     def stamp(self, s):
         theta = s.own("theta")
-        s.C(theta, theta, 1.0)
-        s.G(theta, s.node(self.nodes["n"]), -1.0)
+        s.c_entry(theta, theta, 1.0)
+        s.g_entry(theta, s.node(self.nodes["n"]), -1.0)
         s.initial_charge(theta, self.params["held"])
         s.hold_at_dc(theta, self.params["held"])
 

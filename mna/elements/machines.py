@@ -286,14 +286,14 @@ class DCMachine(Element):
         a, b, i = s.node(self.nodes["a"]), s.node(self.nodes["b"]), s.own("i")
         w = s.node(self.nodes["shaft"])
         k, L = self.constant, self.params["inductance"]
-        s.G(a, i, 1.0)  # KCL: i leaves a, enters b
-        s.G(b, i, -1.0)
-        s.C(i, i, L)  # L di/dt + R i + k w - (v_a - v_b) = 0
-        s.G(i, i, self.resistance)
-        s.G(i, w, k)
-        s.G(i, a, -1.0)
-        s.G(i, b, 1.0)
-        s.G(w, i, -k)  # shaft: a torque k*i enters the shaft node
+        s.g_entry(a, i, 1.0)  # KCL: i leaves a, enters b
+        s.g_entry(b, i, -1.0)
+        s.c_entry(i, i, L)  # L di/dt + R i + k w - (v_a - v_b) = 0
+        s.g_entry(i, i, self.resistance)
+        s.g_entry(i, w, k)
+        s.g_entry(i, a, -1.0)
+        s.g_entry(i, b, 1.0)
+        s.g_entry(w, i, -k)  # shaft: a torque k*i enters the shaft node
         s.initial_charge(i, L * self.params["initial"])
 
     def output(self, quantity, probe):
@@ -419,14 +419,14 @@ class CoilGenerator(Element):
         p = self.params
         a, b = s.node(self.nodes["a"]), s.node(self.nodes["b"])
         i, angle, w = s.own("i"), s.own("angle"), s.node(self.nodes["shaft"])
-        s.G(a, i, 1.0)
-        s.G(b, i, -1.0)
-        s.C(i, i, p["inductance"])  # L di/dt + R i + e - (v_a - v_b) = 0; e in the batch
-        s.G(i, i, p["resistance"])
-        s.G(i, a, -1.0)
-        s.G(i, b, 1.0)
-        s.C(angle, angle, 1.0)  # d angle/dt - w = 0
-        s.G(angle, w, -1.0)
+        s.g_entry(a, i, 1.0)
+        s.g_entry(b, i, -1.0)
+        s.c_entry(i, i, p["inductance"])  # L di/dt + R i + e - (v_a - v_b) = 0; e in the batch
+        s.g_entry(i, i, p["resistance"])
+        s.g_entry(i, a, -1.0)
+        s.g_entry(i, b, 1.0)
+        s.c_entry(angle, angle, 1.0)  # d angle/dt - w = 0
+        s.g_entry(angle, w, -1.0)
         s.initial_charge(angle, p["initial-angle"])
         s.initial_charge(i, p["inductance"] * p["initial"])
         s.hold_at_dc(angle, p["initial-angle"])

@@ -139,8 +139,8 @@ class Coupling(Element):
                 taken[pair] = self.name
                 mutual = k * math.sqrt(first.params["inductance"] * second.params["inductance"])
                 i1, i2 = s.unknown_of(first.name, "i"), s.unknown_of(second.name, "i")
-                s.C(i1, i2, mutual)
-                s.C(i2, i1, mutual)
+                s.c_entry(i1, i2, mutual)
+                s.c_entry(i2, i1, mutual)
                 s.initial_charge(i1, mutual * second.params["initial"])
                 s.initial_charge(i2, mutual * first.params["initial"])
 
@@ -205,15 +205,15 @@ class Transformer(Element):
                     (self.nodes["c"], self.nodes["d"], i2, self.params["secondary-resistance"]))
         for a_name, b_name, i, r in windings:
             a, b = s.node(a_name), s.node(b_name)
-            s.G(a, i, 1.0)
-            s.G(b, i, -1.0)
-            s.G(i, a, -1.0)
-            s.G(i, b, 1.0)
-            s.G(i, i, r)
-        s.C(i1, i1, l1)
-        s.C(i2, i2, l2)
-        s.C(i1, i2, m)
-        s.C(i2, i1, m)
+            s.g_entry(a, i, 1.0)
+            s.g_entry(b, i, -1.0)
+            s.g_entry(i, a, -1.0)
+            s.g_entry(i, b, 1.0)
+            s.g_entry(i, i, r)
+        s.c_entry(i1, i1, l1)
+        s.c_entry(i2, i2, l2)
+        s.c_entry(i1, i2, m)
+        s.c_entry(i2, i1, m)
 
     def output(self, quantity, probe):
         v1 = probe.node(self.nodes["a"]) - probe.node(self.nodes["b"])
@@ -313,15 +313,15 @@ class Choke(TwoTerminal):
     def stamp(self, s):
         a, b = s.node(self.nodes["a"]), s.node(self.nodes["b"])
         phi, i = s.own("flux"), s.own("i")
-        s.G(a, i, 1.0)
-        s.G(b, i, -1.0)
+        s.g_entry(a, i, 1.0)
+        s.g_entry(b, i, -1.0)
         # Flux row: d(phi)/dt - (v_a - v_b) + R*i = 0.
-        s.C(phi, phi, 1.0)
-        s.G(phi, a, -1.0)
-        s.G(phi, b, 1.0)
-        s.G(phi, i, self.params["resistance"])
+        s.c_entry(phi, phi, 1.0)
+        s.g_entry(phi, a, -1.0)
+        s.g_entry(phi, b, 1.0)
+        s.g_entry(phi, i, self.params["resistance"])
         # Current row: phi - phi(i) = 0 (the nonlinear part is in ChokeBatch).
-        s.G(i, phi, 1.0)
+        s.g_entry(i, phi, 1.0)
         self._i = i
         s.initial_charge(phi, float(self.curve(self.params["initial"])[0]))
 

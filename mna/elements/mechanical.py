@@ -177,7 +177,7 @@ class Inertia(ShaftPart):
     def stamp(self, s):
         w = s.node(self.nodes["shaft"])
         j = self.params["inertia"]
-        s.C(w, w, j)
+        s.c_entry(w, w, j)
         self._state = s.state({w: j})
         s.initial_charge(w, j * self.params["initial"])
 
@@ -385,8 +385,8 @@ class SpeedSource(Element):
 
     def stamp(self, s):
         w, t = s.node(self.nodes["shaft"]), s.own("torque")
-        s.G(w, t, 1.0)
-        s.G(t, w, 1.0)
+        s.g_entry(w, t, 1.0)
+        s.g_entry(t, w, 1.0)
         s.source(t, 1.0, self.waveform)
 
     def corners(self, start, stop):
@@ -441,10 +441,10 @@ class Gear(Element):
     def stamp(self, s):
         n = float(self.params["ratio"])
         a, b, t = s.node(self.nodes["input"]), s.node(self.nodes["output"]), s.own("torque")
-        s.G(a, t, 1.0)  # T leaves the input shaft ...
-        s.G(b, t, -n)  # ... and n*T enters the output shaft
-        s.G(t, a, 1.0)  # w_in - n*w_out = 0
-        s.G(t, b, -n)
+        s.g_entry(a, t, 1.0)  # T leaves the input shaft ...
+        s.g_entry(b, t, -n)  # ... and n*T enters the output shaft
+        s.g_entry(t, a, 1.0)  # w_in - n*w_out = 0
+        s.g_entry(t, b, -n)
 
     def output(self, quantity, probe):
         torque = probe.unknown(self, "torque")

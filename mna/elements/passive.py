@@ -104,13 +104,13 @@ class Inductor(TwoTerminal):
     def stamp(self, s):
         a, b, i = s.node(self.nodes["a"]), s.node(self.nodes["b"]), s.own("i")
         # KCL: the branch current leaves a and enters b.
-        s.G(a, i, 1.0)
-        s.G(b, i, -1.0)
+        s.g_entry(a, i, 1.0)
+        s.g_entry(b, i, -1.0)
         # Branch: L di/dt - (v_a - v_b) + R i = 0.
-        s.C(i, i, self.params["inductance"])
-        s.G(i, a, -1.0)
-        s.G(i, b, 1.0)
-        s.G(i, i, self.params["resistance"])
+        s.c_entry(i, i, self.params["inductance"])
+        s.g_entry(i, a, -1.0)
+        s.g_entry(i, b, 1.0)
+        s.g_entry(i, i, self.params["resistance"])
         s.initial_charge(i, self.params["inductance"] * self.params["initial"])
 
     def current(self, probe):

@@ -57,10 +57,10 @@ class VoltageSource(SmallSignalSource):
 
     def stamp(self, s):
         a, b, i = s.node(self.nodes["a"]), s.node(self.nodes["b"]), s.own("i")
-        s.G(a, i, 1.0)
-        s.G(b, i, -1.0)
-        s.G(i, a, 1.0)
-        s.G(i, b, -1.0)
+        s.g_entry(a, i, 1.0)
+        s.g_entry(b, i, -1.0)
+        s.g_entry(i, a, 1.0)
+        s.g_entry(i, b, -1.0)
         s.source(i, 1.0, self.waveform)
 
     def corners(self, start, stop):

@@ -358,8 +358,8 @@ class TemperatureSource(Element):
 
     def stamp(self, s):
         n, h = s.node(self.nodes["node"]), s.own("heat")
-        s.G(n, h, 1.0)
-        s.G(h, n, 1.0)
+        s.g_entry(n, h, 1.0)
+        s.g_entry(h, n, 1.0)
         s.source(h, 1.0, self.waveform)  # rise = T(t) - T_ambient
         s.source(h, -1.0, Constant(ambient_temperature(s.circuit)))
 
