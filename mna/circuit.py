@@ -49,6 +49,11 @@ from .units import (
     VOLT,
     Dimension,
     DimensionError,
+    FARAD,
+    HENRY,
+    OHM,
+    format_si,
+    unit_symbol,
     Quantity,
     describe,
     parse_quantity,
@@ -153,6 +158,45 @@ def _check_range(arg: Arg, value: float, what: str, span: Span | None) -> None:
         else:
             bounds = f"at least {low:g}{unit}" if low is not None else f"at most {high:g}{unit}"
         raise InputError(f"{what} must be {bounds} (the range its model holds for), got {value:g}{unit}", span)
+
+
+#: Values of parts as they are made (common practice, from catalogues of
+#: inductors, capacitors and resistors): far outside, a value is more likely
+#: a prefix slip (10 MH for 10 mH) than a part, and gets a warning.
+PART_RANGES: dict[Dimension, tuple[float, float]] = {
+    HENRY: (1e-12, 100.0),  # 1 pH (a trace) to 100 H (a large choke)
+    FARAD: (1e-15, 100.0),  # 1 fF to 100 F (a supercapacitor bank)
+    OHM: (1e-6, 1e12),  # 1 uohm (a busbar) to 1 Tohm (insulation)
+}
+_PREFIX_SLIPS = (("M", "m"), ("m", "u"), ("u", "n"), ("n", "p"), ("G", "M"))
+
+
+def _part_warning(value: float, dim: Dimension | None, expr: nl.Expr, what: str) -> str | None:
+    """A warning for a literal far outside what parts are made with, naming the likely prefix."""
+    limits = PART_RANGES.get(dim) if dim is not None else None
+    if limits is None or not isinstance(expr, nl.Number) or value == 0:
+        return None
+    low, high = limits
+    if low <= abs(value) <= high:
+        return None
+    text = expr.text.strip()
+    number = _NUMBER_PART.match(text)
+    unit = text[number.end():].strip() if number else ""
+    guess = ""
+    for wrong, right in _PREFIX_SLIPS:
+        if unit.startswith(wrong) and unit[len(wrong):] and len(unit) > len(wrong):
+            base = unit[len(wrong):]
+            if base in ("H", "F", "ohm", "Ω"):
+                scaled = value * 10.0 ** (PREFIXES.get(right, 0) - PREFIXES[wrong])
+                if low <= abs(scaled) <= high:
+                    guess = f"; did you mean {number.group().strip()} {right}{base}?"
+                    break
+    if not guess:
+        guess = "; check its prefix"
+    where = f"line {expr.span.line}: " if expr.span is not None else ""
+    side = "above" if abs(value) > high else "below"
+    return (f"{where}{what} is {text}, {side} what parts are made with "
+            f"({format_si(low, unit_symbol(dim))} to {format_si(high, unit_symbol(dim))}){guess}")
 
 
 def _check_dimension(q: Quantity, want: Dimension, what: str, span: Span | None, got_text: str | None = None) -> float:
@@ -380,6 +424,9 @@ class Elaborator:
         if arg.nonnegative and value < 0:
             raise InputError(f"{what} cannot be negative, got {value:g}", expr.span)
         _check_range(arg, value, what, expr.span)
+        warning = _part_warning(value, arg.dimension, expr, what)
+        if warning is not None and warning not in self.circuit.warnings:
+            self.circuit.warnings.append(warning)
         return value
 
     # -- elements -------------------------------------------------------------

@@ -77,6 +77,29 @@ def _time_scale(t_end: float) -> tuple[float, str]:
     return 1.0, "s"
 
 
+_AXIS_PREFIXES = {-15: "f", -12: "p", -9: "n", -6: "\u00b5", -3: "m", 0: "", 3: "k", 6: "M", 9: "G", 12: "T"}
+
+
+def value_scale(series, unit: str) -> tuple[float, str]:
+    """The engineering prefix for an axis: (divide values by, unit shown), e.g. (1e-6, "µH").
+
+    Chosen from the largest magnitude plotted, so tick labels read 0 to
+    999 of the prefixed unit rather than 1e-5 H. A unit that takes no prefix
+    (rpm, %, none) is left as it is.
+    """
+    import numpy as np
+
+    from .units import _takes_prefix
+
+    peaks = [float(np.nanmax(np.abs(v[np.isfinite(v)]))) for v in series if np.any(np.isfinite(v))]
+    peak = max(peaks, default=0.0)
+    if not unit or peak == 0.0 or not _takes_prefix(unit.replace("\u00b5", "u")):
+        return 1.0, unit
+    exponent = int(3 * np.floor(np.log10(peak) / 3))
+    exponent = min(max(exponent, -15), 12)
+    return 10.0 ** exponent, _AXIS_PREFIXES[exponent] + unit
+
+
 def plot_waveforms(path: str | Path, waves: Waveforms, title: str) -> Path:
     """One panel per unit (signals of one unit share a panel), shared time axis."""
     import matplotlib
@@ -93,12 +116,15 @@ def plot_waveforms(path: str | Path, waves: Waveforms, title: str) -> Path:
     fig, axes = plt.subplots(len(panels) or 1, 1, sharex=True, figsize=(8.5, 2.2 + 1.9 * max(len(panels), 1)),
                              squeeze=False)
     for ax, (unit, labels) in zip(axes[:, 0], panels):
-        for j, label in enumerate(labels[:6]):
-            ax.plot(waves.time / factor, waves[label], color=PALETTE[j % len(PALETTE)], linewidth=1.2,
+        shown = labels[:6]
+        scale, shown_unit = value_scale([waves[label] for label in shown], unit)
+        for j, label in enumerate(shown):
+            ax.plot(waves.time / factor, waves[label] / scale, color=PALETTE[j % len(PALETTE)], linewidth=1.2,
                     label=label)
-        ax.set_ylabel(f"[{unit}]" if unit else "[1]")
+        ax.set_ylabel(f"[{shown_unit}]" if shown_unit else "[1]")
         ax.grid(True, color="#d9d9d9", linewidth=0.6)
-        ax.legend(loc="best", fontsize=8, frameon=False)
+        # Beside the panel, never over the traces.
+        ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), borderaxespad=0.0, fontsize=8, frameon=False)
     axes[-1, 0].set_xlabel(f"time [{t_unit}]")
     fig.suptitle(title, fontsize=11)
     fig.tight_layout()

@@ -157,3 +157,40 @@ def test_python_api_builds_the_same_circuit():
     op = c.dc()
     # DC: the inductor is a short with its 1 ohm winding: I = 10 V / 6 ohm (Ohm's law).
     assert op["i(L1)"] == pytest.approx(10 / 6)
+
+
+def test_values_far_outside_what_parts_are_made_with_are_warned():
+    # Common practice (catalogue ranges): a 10 MH inductor is a slip for 10 mH;
+    # a 1 kF capacitor is far above any part; 10 F (a supercapacitor) is not.
+    c = mna.parse("voltage-source V1 a -> gnd 1 V\ninductor L1 a -> b 10 MH\nresistor R1 b -> gnd 1 ohm\n"
+                  "capacitor C1 a -> gnd 1 kF\ncapacitor C2 a -> gnd 10 F\n")
+    assert any("line 2" in w and "10 MH" in w and "did you mean 10 mH?" in w for w in c.warnings)
+    assert any("line 4" in w and "1 kF" in w and "check its prefix" in w for w in c.warnings)
+    assert not any("C2" in w for w in c.warnings)
+
+
+def test_a_prefix_without_its_unit_is_explained():
+    with pytest.raises(mna.InputError, match="a prefix needs its unit: 1 kohm"):
+        mna.parse("resistor R1 a -> gnd 1k\n")
+    with pytest.raises(mna.InputError, match="'meg' is not a prefix; mega is M.*1 Mohm"):
+        mna.parse("resistor R1 a -> gnd 1 meg\n")
+    with pytest.raises(mna.InputError, match="4.7 uF"):
+        mna.parse("capacitor C1 a -> gnd 4.7u\n")
+
+
+def test_duty_given_as_a_plain_number_points_at_the_number():
+    with pytest.raises(mna.InputError) as info:
+        mna.parse("voltage-source V1 a -> gnd pwm(high=5 V, frequency=1 kHz, duty=60)\n")
+    assert info.value.span.column == 64 and "write duty=60 %" in str(info.value)
+    with pytest.raises(mna.InputError) as info:
+        mna.parse("switch Q1 a -> gnd gate=pwm(frequency=1 kHz, duty=60)\n")
+    assert info.value.span.column == 51 and "write duty=60 %" in str(info.value)
+
+
+def test_hertz_for_a_speed_is_caught_through_a_parameter():
+    # A let parameter in Hz used as a shaft speed: the hertz literal is found
+    # through the parameter's definition, and the error points at the use.
+    text = "let f = 50 Hz\nspeed-source S1 rotor speed=2 * f\ninertia J1 rotor 1 kg*m^2\n"
+    with pytest.raises(UnitsError, match=r"angular speed.*f = 50 Hz \(line 1\)") as info:
+        mna.parse(text)
+    assert info.value.span.line == 2
