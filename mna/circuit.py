@@ -667,6 +667,7 @@ class Circuit:
         self.node_spans: dict[str, Span | None] = {}
         self.params: dict[str, Quantity] = {}
         self.definitions: dict[str, nl.Expr] = {}  # let NAME -> its expression, as written
+        self.unconnected: dict[str, Span] = {}  # nodes meant to have one terminal only
         self.analyses: list[AnalysisRequest] = []
         self.records: list[SignalRef] = []
         self.loss_request = None  # a losses line: mna.losses.LossRequest
@@ -1192,6 +1193,9 @@ def elaborate(netlist: nl.Netlist, parameters: Mapping[str, Any] | None = None,
             pending_losses.append(st)
         elif isinstance(st, nl.RecordStatement):
             pending_records.append(st)
+        elif isinstance(st, nl.UnconnectedStatement):
+            for name, span in zip(st.names, st.spans):
+                circuit.unconnected[name] = span
         elif isinstance(st, nl.MeasureStatement):
             circuit.measures.append(st)
         elif isinstance(st, nl.CheckStatement):
@@ -1201,6 +1205,7 @@ def elaborate(netlist: nl.Netlist, parameters: Mapping[str, Any] | None = None,
     from .blocks import check_overrides
 
     check_overrides(circuit)
+    _check_single_terminal_nodes(circuit)
     # Records may name elements defined further down the file.
     for st in pending_records:
         for q in st.quantities:
@@ -1211,6 +1216,48 @@ def elaborate(netlist: nl.Netlist, parameters: Mapping[str, Any] | None = None,
 
     validate(circuit)
     return circuit
+
+
+def _check_single_terminal_nodes(circuit: "Circuit") -> None:
+    """A node that only one terminal touches gets a warning with its line,
+    column and a did-you-mean (a misspelled node name, most of the time)
+    unless an ``unconnected`` line says it is meant so.
+
+    Nodes an element only senses (a switch gate's ``v(g)``) do not count as
+    touched; an ``unconnected`` name that is no node is an error too.
+    """
+    touched: dict[str, int] = {}
+    for element in circuit.elements.values():
+        for port in element.ports:
+            if port.domain == ELEMENT:
+                continue
+            for terminal in port.names:
+                node = element.nodes.get(terminal)
+                if isinstance(node, str):
+                    touched[node] = touched.get(node, 0) + 1
+        for node in element.sensed_nodes():
+            touched[node] = touched.get(node, 0) + 2
+    references = set(REFERENCE.values())
+    for name, span in circuit.unconnected.items():
+        if name not in circuit.nodes:
+            close = difflib.get_close_matches(name, [n for n in circuit.nodes if n not in references], n=1)
+            raise UnknownNameError(f"unconnected names no node {name!r}", span,
+                                   hint=f"did you mean {close[0]!r}?" if close else None)
+    for node, count in touched.items():
+        if count != 1 or node in references or node in circuit.unconnected:
+            continue
+        domain = circuit.nodes.get(node)
+        others = [n for n, c in touched.items() if c > 1 and n != node and circuit.nodes.get(n) == domain]
+        close = difflib.get_close_matches(node, others + [r for r in references if REFERENCE.get(domain) == r],
+                                          n=1, cutoff=0.6)
+        hint = (f"did you mean {close[0]!r}? " if close else "") + (
+            f"if {node!r} is meant to have one connection only (a test point, an open winding end), "
+            f"say so with a line 'unconnected {node}'")
+        span = circuit.node_spans.get(node)
+        where = f"line {span.line}, column {span.column}: " if span is not None else ""
+        warning = f"{where}node {node!r} is touched by one terminal only: nothing else connects to it; {hint}"
+        if warning not in circuit.warnings:
+            circuit.warnings.append(warning)
 
 
 @contextmanager

@@ -192,6 +192,15 @@ class RecordStatement:
 
 
 @dataclass(slots=True)
+class UnconnectedStatement:
+    """``unconnected NODE, ...``: nodes meant to be touched by one terminal only."""
+
+    names: tuple[str, ...]
+    spans: tuple[Span, ...]
+    span: Span
+
+
+@dataclass(slots=True)
 class MeasureStatement:
     """``measure NAME = EXPR``; ``text`` is ``NAME = EXPR`` as written, blanks tidied."""
 
@@ -350,6 +359,7 @@ Statement = Union[
     RecordStatement,
     MeasureStatement,
     CheckStatement,
+    UnconnectedStatement,
 ]
 
 
@@ -543,6 +553,10 @@ class _Builder(Transformer):
     def record_stmt(self, children):
         return RecordStatement(tuple(children), span_of(children[0]))
 
+    def unconnected_stmt(self, children):
+        spans = tuple(self.span(tok) for tok in children)
+        return UnconnectedStatement(tuple(str(tok) for tok in children), spans, spans[0])
+
     def measure_stmt(self, children):
         name, value = children
         return MeasureStatement(str(name), value, self.span(name), text=statement_text(self._text, "measure"))
@@ -684,7 +698,7 @@ _FAST = re.compile(
 _FAST_ARG = re.compile(rf"([a-z][a-z0-9]*(?:-[a-z0-9]+)*)[ \t]*=[ \t]*({_Q})")
 _STATEMENT_WORDS = frozenset({"let", "circuit", "simulate", "record", "measure", "check",
                               "block", "blocks", "parameter", "sweep", "spread", "monte-carlo", "corners",
-                              "required-yield", "losses"})
+                              "required-yield", "losses", "unconnected"})
 
 
 def _fast_element(chunk: _Chunk, file: str | None, lines: list[str]) -> ElementStatement | None:

@@ -194,3 +194,18 @@ def test_hertz_for_a_speed_is_caught_through_a_parameter():
     with pytest.raises(UnitsError, match=r"angular speed.*f = 50 Hz \(line 1\)") as info:
         mna.parse(text)
     assert info.value.span.line == 2
+
+
+def test_a_node_touched_by_one_terminal_is_reported_with_its_place():
+    text = "voltage-source V1 out -> gnd 1 V\nresistor R1 out -> gnd 1 ohm\nresistor R2 outt -> gnd 1 ohm\n"
+    (warning,) = [w for w in mna.parse(text).warnings if "one terminal" in w]
+    assert warning.startswith("line 3, column 13: node 'outt'") and "did you mean 'out'?" in warning
+    assert "unconnected outt" in warning
+    # Marked as meant: no warning. A gate's sensed node counts as connected.
+    quiet = mna.parse(text.replace("outt -> gnd", "out -> tp") + "unconnected tp\n")
+    assert not any("one terminal" in w for w in quiet.warnings)
+    gate = mna.parse("voltage-source Vg g -> gnd 5 V\nvoltage-source V1 a -> gnd 1 V\n"
+                     "switch Q1 a -> gnd gate=v(g) > 2 V\n")
+    assert not any("one terminal" in w for w in gate.warnings)
+    with pytest.raises(UnknownNameError, match="unconnected names no node 'tq'"):
+        mna.parse(text + "unconnected tq\n")

@@ -223,6 +223,11 @@ class Element:
     def branches(self) -> list[Branch]:
         return []
 
+    def sensed_nodes(self) -> tuple[str, ...]:
+        """Nodes the element reads without a terminal on them (a switch gate's
+        ``v(g)``); they count as connected for the one-terminal check."""
+        return ()
+
     def terminal_nodes(self) -> list[tuple[str, str]]:
         """(node, domain) pairs of every node terminal."""
         out = []

@@ -461,6 +461,11 @@ class Switch(TwoTerminal):
         self.hysteresis = self._hysteresis(p["hysteresis"])
         self.gate = None if isinstance(self.spec, (CompareSpec, ComplementSpec)) else self.spec
 
+    def sensed_nodes(self) -> tuple[str, ...]:
+        if isinstance(self.spec, CompareSpec) and self.spec.quantity == "v":
+            return self.spec.names
+        return ()
+
     def _hysteresis(self, given: Quantity | None) -> float:
         """The hysteresis band (V or A), checked against what the gate compares."""
         if given is None:
