@@ -123,6 +123,11 @@ class Stamper:
             self._c[1].append(col)
             self._c[2].append(value)
 
+    # The names before g_entry/c_entry, kept so kinds written against them
+    # (plugins included) still stamp.
+    G = g_entry
+    C = c_entry
+
     def conductance(self, a: int, b: int, g: float) -> None:
         """A conductance ``g`` (S) between nodes a and b."""
         self.g_entry(a, a, g)

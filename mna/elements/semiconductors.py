@@ -258,7 +258,7 @@ class Diode(TwoTerminal):
         self._qm = -1
         if self.recovers:
             self._qm = s.own("stored")
-            s.C(self._qm, self._qm, 1.0)  # d qM/dt in its own row
+            s.c_entry(self._qm, self._qm, 1.0)  # d qM/dt in its own row
 
     # -- results -------------------------------------------------------------------
     def current(self, probe):

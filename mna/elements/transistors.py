@@ -288,8 +288,8 @@ class Mosfet(TwoTerminal):
             self.table = p["output-capacitance"]
             q = s.own("qoss")
             # the charge leaves a and enters b: d/dt qoss in both KCL rows
-            s.C(self._a, q, 1.0)
-            s.C(self._b, q, -1.0)
+            s.c_entry(self._a, q, 1.0)
+            s.c_entry(self._b, q, -1.0)
             self._state_q = s.state({q: 1.0})
             self._q = q
 
