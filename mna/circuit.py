@@ -99,7 +99,24 @@ FREQUENCY_SETTINGS: dict[str, Arg] = {
     "per-decade": Arg("per-decade", DIMENSIONLESS, default=50, positive=True, doc="points per decade"),
     "at": Arg("at", None, default=None, kind="expr", doc="list(F1, F2, ...): these frequencies only"),
 }
-ANALYSES: dict[str, dict[str, Arg]] = {"dc": {}, "transient": TRANSIENT_SETTINGS, "frequency": FREQUENCY_SETTINGS}
+PERIODIC_SETTINGS: dict[str, Arg] = {
+    "period": Arg("period", SECOND, default=None, positive=True, doc="the period of the sources and gates"),
+    "period-of": Arg("period-of", None, default=None, kind="expr",
+                     doc="an element whose pwm() gate or pwm()/sine() waveform sets the period"),
+    "repeat-tolerance": Arg("repeat-tolerance", DIMENSIONLESS, default=None, positive=True,
+                            doc="largest change of the state over one period, relative to its scale"),
+    "newton-limit": Arg("newton-limit", DIMENSIONLESS, default=None, positive=True,
+                        doc="most Newton iterations on the period map"),
+    "period-limit": Arg("period-limit", DIMENSIONLESS, default=None, positive=True,
+                        doc="most periods integrated in all"),
+    "warmup": Arg("warmup", DIMENSIONLESS, default=None, positive=True,
+                  doc="plain periods from the start before Newton's method"),
+    "periods": Arg("periods", DIMENSIONLESS, default=None, positive=True,
+                   doc="periods in steady state kept in the results"),
+    **{k: v for k, v in TRANSIENT_SETTINGS.items() if k != "until"},
+}
+ANALYSES: dict[str, dict[str, Arg]] = {"dc": {}, "transient": TRANSIENT_SETTINGS, "frequency": FREQUENCY_SETTINGS,
+                                       "periodic": PERIODIC_SETTINGS}
 
 
 # --------------------------------------------------------------------------
@@ -627,6 +644,11 @@ class Elaborator:
             from .analyses.settings import check_request
 
             self.circuit.warnings.extend(check_request(settings, st.analysis_span))
+        if st.analysis == "periodic" and settings.get("period-of") is not None:
+            expr = settings["period-of"]
+            if not isinstance(expr, nl.Name):
+                raise InputError("period-of= takes an element name, like period-of=Q1", expr.span)
+            settings["period-of"] = expr.name
         if st.analysis == "frequency":
             from .frequency_settings import check_frequency_settings
 
@@ -1017,6 +1039,48 @@ class Circuit:
                 st = nl.parse_netlist(f"record {text}").statements[0]
                 records.extend(self.signal_ref(q) for q in st.quantities)
         return frequency_response(self, settings, records)
+
+    def periodic(
+        self,
+        period: float | str | None = None,
+        period_of: str | None = None,
+        record: Iterable[str] | None = None,
+        **options: Any,
+    ):
+        """Periodic steady state: the periods after every slow mode has died out.
+
+        ``period`` (s, or text such as ``"10 us"``) or ``period_of`` (the name
+        of a switch with a ``pwm()`` gate, or of a source with a ``pwm()`` or
+        ``sine()`` waveform) sets the period. ``options``: ``repeat_tolerance``
+        (default 1e-6), ``newton_limit`` (12), ``period_limit`` (2000),
+        ``warmup`` (1), ``periods`` (1, the periods kept), and every setting
+        of :meth:`transient` but ``until`` for the period runs. Returns
+        :class:`~mna.results.Waveforms` over ``periods`` periods from t = 0
+        with ``analysis == "periodic"`` and ``statistics["period_s"]``,
+        ``["periods_integrated"]``, ``["newton_iterations_shooting"]``,
+        ``["steady_state"]`` (how it was reached). See
+        :mod:`mna.analyses.periodic`.
+        """
+        from .analyses.periodic import periodic
+
+        settings: dict[str, Any] = {"period": _seconds(period, "period") if period is not None else None,
+                                    "period-of": period_of}
+        for key, value in options.items():
+            name = key.replace("_", "-")
+            if name not in PERIODIC_SETTINGS or name in settings:
+                known = ", ".join(k.replace("-", "_") for k in PERIODIC_SETTINGS if k not in settings)
+                raise InputError(f"periodic() got an unknown option {key!r}; the options are {known}")
+            arg = PERIODIC_SETTINGS[name]
+            if isinstance(value, str) and arg.kind == "quantity" and arg.dimension is not None:
+                value = _python_value(arg, value, f"periodic() {key}")
+            settings[name] = value
+        records = None
+        if record is not None:
+            records = []
+            for text in record:
+                st = nl.parse_netlist(f"record {text}").statements[0]
+                records.extend(self.signal_ref(q) for q in st.quantities)
+        return periodic(self, settings, records)
 
     def run(self) -> list:
         """Run the file's own ``simulate`` lines, in order; returns their results.

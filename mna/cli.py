@@ -257,6 +257,23 @@ def _write_results(circuit, results: list, out_dir: Path, args, say) -> dict[str
                 png = plot_waveforms(out_dir / f"waveforms{suffix}.png", recorded, circuit.title or circuit.name)
                 outputs[f"png{suffix}"] = str(png)
             st = result.statistics
+            if result.analysis == "periodic":
+                how = {"shooting": f"by shooting, {st['newton_iterations_shooting']} Newton iterations",
+                       "plain periods": "by plain periods after shooting failed",
+                       "not settled": "NOT SETTLED"}.get(st["steady_state"], st["steady_state"])
+                say(f"  periodic steady state, period {_fmt(st['period_s'], 's')}: {how}, "
+                    f"{st['periods_integrated']} periods integrated, {st['wall_time_s']:.3g} s")
+                for note in result.warnings:
+                    if note.startswith("simulate periodic"):
+                        say(f"  warning: {note}")
+                if not args.no_plot and result.time.size > 1:
+                    from .harmonics import plot_spectra
+
+                    png = plot_spectra(out_dir / f"spectrum{suffix}.png", recorded, st["period_s"],
+                                       circuit.title or circuit.name)
+                    if png is not None:
+                        outputs[f"spectrum{suffix}"] = str(png)
+                continue
             reached = float(result.time[-1]) if result.time.size else 0.0  # a run may fail at t = 0
             say(f"  transient to {_fmt(reached, 's')}: {st['steps']} steps, "
                 f"{st['factorizations']} factorization{'s' if st['factorizations'] != 1 else ''}, "

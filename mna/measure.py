@@ -62,6 +62,7 @@ from .units import (
     unit_symbol,
 )
 from .measure_frequency import FREQUENCY_MEASUREMENTS, NoFrequencyValue, frequency_call
+from .measure_harmonics import HARMONIC_MEASUREMENTS, harmonic_call
 from .values import RPM, SignalRef, stored_per_si
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -264,10 +265,10 @@ class _Calls:
         self.waves = waves
         self.op = op
         self.dry = dry
-        transients = [a for a in circuit.analyses if a.analysis == "transient"]
+        transients = [a for a in circuit.analyses if a.analysis in ("transient", "periodic")]
         self.has_transient = bool(transients)
         self.has_dc = any(a.analysis == "dc" for a in circuit.analyses)
-        self.until = float(transients[-1].settings["until"]) if transients else None
+        self.until = _run_end(transients[-1]) if transients else None
         self.hints: dict[int, str] = {}  # id(call) -> display unit ("rpm", "%"...)
         self.response = None  # the last frequency analysis's FrequencyResponse
 
@@ -275,17 +276,22 @@ class _Calls:
     def __call__(self, call: nl.Call, sub: Callable[[nl.Expr], Quantity]) -> Quantity | None:
         if call.func in FREQUENCY_MEASUREMENTS:
             return self._frequency_measurement(call, sub)
+        if call.func in HARMONIC_MEASUREMENTS:
+            q, self.hints[id(call)] = harmonic_call(self, call, sub)
+            return q
         if _is_measurement(call):
             return self._measurement(call, sub)
         if call.func in FUNCTIONS:
             return None
         if _is_signal(call):
             return self._plain_signal(call)
-        close = difflib.get_close_matches(call.func, [*MEASUREMENTS, *FREQUENCY_MEASUREMENTS, *FUNCTIONS], n=1)
+        close = difflib.get_close_matches(
+            call.func, [*MEASUREMENTS, *FREQUENCY_MEASUREMENTS, *HARMONIC_MEASUREMENTS, *FUNCTIONS], n=1)
         raise UnknownNameError(
             f"unknown function {call.func}()", call.span,
             hint=f"did you mean {close[0]}()?" if close else
-            "measurements: " + " ".join(MEASUREMENTS) + "; of a frequency response: "
+            "measurements: " + " ".join(MEASUREMENTS) + "; of harmonics: " + " ".join(HARMONIC_MEASUREMENTS)
+            + "; of a frequency response: "
             + " ".join(FREQUENCY_MEASUREMENTS) + "; functions: " + " ".join(FUNCTIONS),
         )
 
@@ -474,6 +480,15 @@ class _Calls:
                 f"the transient results hold no {ref.label}", call.span,
                 hint="run the file with mna.measure.run_and_check, which records what checks need")
         return self.waves.time, _to_si(ref, self.waves[ref.label])
+
+
+def _run_end(request) -> float | None:
+    """The end time (s) of a transient or periodic request's results, when known before the run."""
+    settings = request.settings
+    if request.analysis == "periodic":
+        period = settings.get("period")
+        return None if period is None else float(period) * float(settings.get("periods") or 1)
+    return float(settings["until"])
 
 
 def _has_signal(expr: nl.Expr) -> bool:
@@ -992,6 +1007,10 @@ def run_and_check(circuit: "Circuit", progress: Callable[[float, float], None] |
                 from .analyses.frequency import frequency_response
 
                 results.append(frequency_response(circuit, dict(request.settings), frequency_recording(circuit)))
+            elif request.analysis == "periodic":
+                from .analyses.periodic import periodic
+
+                results.append(periodic(circuit, dict(request.settings), keep))
             else:
                 from .analyses.transient import transient
 

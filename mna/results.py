@@ -70,6 +70,18 @@ class Waveforms:
     #: ``circuit.transient(until=..., start=res.final_state)``; None for a failed run.
     final_state: Any = None
 
+    def spectrum(self, label: str, harmonics: int = 40, fundamental: float | None = None):
+        """Harmonics 0..``harmonics`` of one signal over the last whole periods
+        (:class:`mna.harmonics.Spectrum`: arrays ``amplitude``, ``phase``,
+        ``frequency``; ``dc``, ``rms``, ``crest``, ``thd()``). The period is a
+        ``simulate periodic`` result's own, or ``1/fundamental`` (Hz)."""
+        from .harmonics import period_of_result, spectrum
+
+        period = 1.0 / fundamental if fundamental is not None else period_of_result(self)
+        if period is None:
+            raise ValueError("spectrum() of a transient run needs fundamental= (Hz)")
+        return spectrum(self.time, self[label], period, harmonics)
+
     def __getitem__(self, label: str) -> np.ndarray:
         if label == "time":
             return self.time

@@ -264,7 +264,13 @@ class _Run:
         cfg, system = self.cfg, self.system
         first = cfg.step or cfg.until * 1e-6
         if cfg.start == "state":
-            return np.array(cfg.initial_state.x)
+            # The state's charges and fluxes, with values of the other
+            # unknowns made consistent with them (a state whose charges were
+            # set by hand, as shooting does, need not be consistent).
+            x = np.array(cfg.initial_state.x)
+            h0 = self.start_h0 = first * JUMP_FRACTION
+            self.q_start = self.charges(x, cfg.t0)
+            return self.jump(x, cfg.t0, h0, self.q_start)
         if cfg.start == "dc":
             leak = dc_leak(system, self.report)
             self.factorizer.forget()
@@ -400,6 +406,8 @@ class _Run:
             # (solved at 0+), or an operating point with no ideal edge at 0.
             if cfg.start == "rest":
                 rates0 = self.rates_after_jump(x, 0.0, self.start_h0, system.q_initial, q)
+            elif cfg.start == "state":
+                rates0 = self.rates_after_jump(x, t0, self.start_h0, self.q_start, q)
             elif not _contains(system.jumps(t0 - 1.0 - abs(t0), t0), t0):
                 rates0 = system.rates(x, t0, self.discrete)
             if rates0 is not None:
