@@ -14,7 +14,9 @@ switch states at the start of the period come with the run):
 
 **The sensitivity M** is taken by finite differences of the period map:
 one extra period per differential unknown, each started from ``x0`` with that
-unknown moved by a small step (1e-6 of its scale). For a circuit that is
+unknown moved by a small step (1e-6 of its scale); later iterations update
+it by Broyden's rank-one formula from their own steps and take it afresh
+only when a step fails. For a circuit that is
 linear between switching instants set by time (PWM, schedules), the period
 map is affine and the difference quotient is exact up to round-off; with
 error-controlled steps it is exact as long as the perturbation does not
@@ -229,36 +231,60 @@ class _Shooting:
     def newton(self, start: CircuitState) -> tuple[CircuitState, CircuitState, float, bool]:
         """Newton's method on the period map from ``start``: (state, its end, mismatch, converged).
 
-        Safeguard for maps that are only piecewise smooth (a converter that
-        changes between continuous and discontinuous conduction on the way):
-        a step that does not reduce the mismatch is halved, twice at most, and
-        if it still does not, one plain period is taken instead (it always
-        moves towards a stable steady state).
+        The Jacobian is taken by finite differences once, then kept up to
+        date by Broyden's rank-one update from each step (C. G. Broyden,
+        Math. Comp. 19, 1965), which costs no extra period; it is taken
+        afresh when a step fails. Safeguard for maps that are only piecewise
+        smooth (a converter that changes between continuous and
+        discontinuous conduction on the way): a step from a fresh Jacobian
+        that does not reduce the mismatch is halved, twice at most, and if it
+        still does not, one plain period is taken instead (it always moves
+        towards a stable steady state).
         """
         end = self.end(start)
         r, size = self.mismatch(start, end)
         n = self.diff.size
-        for _ in range(self.cfg.newton_limit):
+        J, fresh = None, False
+        iterations = 0
+        while iterations < self.cfg.newton_limit:
             if size <= 1.0:
                 return start, end, size, True
+            iterations += 1
             self.iterations += 1
-            J = self.jacobian(start, end) - np.eye(n)
-            if not np.all(np.isfinite(J)) or _condition(J) > SINGULAR_CONDITION:
-                return start, end, size, False  # a mode that neither grows nor decays: no steady state
-            step = np.linalg.solve(J, -r)
-            for _ in range(MAX_HALVINGS + 1):
+            if J is None:
+                J, fresh = self.jacobian(start, end) - np.eye(n), True
+                if not np.all(np.isfinite(J)) or _condition(J) > SINGULAR_CONDITION:
+                    return start, end, size, False  # a mode that neither grows nor decays: no steady state
+            try:
+                step = np.linalg.solve(J, -r)
+            except np.linalg.LinAlgError:
+                step = np.full(n, np.nan)
+            accepted = False
+            for _ in range(MAX_HALVINGS + 1 if fresh else 1):
+                if not np.all(np.isfinite(step)):
+                    break
                 x = np.array(end.x)  # algebraic unknowns from the end: the closest consistent values
                 x[self.diff] = start.x[self.diff] + step
                 trial = start.with_values(x)
                 trial_end = self.end(trial)
                 r_new, size_new = self.mismatch(trial, trial_end)
                 if size_new < size:
+                    accepted = True
                     break
                 step = 0.5 * step
+            if accepted:
+                # Broyden: make J map this step onto the change of the mismatch it caused.
+                y = r_new - r
+                J = J + np.outer(y - J @ step, step) / float(step @ step)
+                fresh = False
+            elif not fresh:
+                J = None  # an updated Jacobian that misled: take a fresh one from the same state
+                continue
             else:
                 trial = end.at(0.0)  # one plain period instead
                 trial_end = self.end(trial)
                 r_new, size_new = self.mismatch(trial, trial_end)
+                J = None
             start, end, r, size = trial, trial_end, r_new, size_new
         return start, end, size, size <= 1.0
 
