@@ -181,3 +181,19 @@ measure bad = distortion(v(in))
     # A 1 V peak sine: 0.7071 V RMS; error-controlled steps with straight
     # lines between them err by well under 0.5 %.
     assert outcome.report.measurements[0].value == pytest.approx(1 / math.sqrt(2), rel=5e-3)
+
+
+def test_the_period_of_a_transistor_gate():
+    circuit = mna.parse("""
+voltage-source V1 s -> gnd 12 V
+inductor L1 s -> d 1 mH resistance=4 ohm
+mosfet Q1 d -> gnd gate=pwm(frequency=25 kHz, duty=30 %) on-resistance=10 mohm
+diode D1 d -> s
+""")
+    res = circuit.periodic(period_of="Q1", step="0.4 us")
+    assert res.statistics["period_s"] == pytest.approx(40e-6, rel=1e-12)
+    assert res.statistics["steady_state"] == "shooting"
+    # Average coil current: about D * 12 V / 4 ohm = 0.9 A (less the diode's
+    # forward drop during the off time); the time constant L/R = 250 us is
+    # 6 periods, so this is the settled value, not the first period's.
+    assert 0.6 < res.spectrum("i(L1)").dc < 0.95

@@ -97,7 +97,7 @@ def _count(settings: dict, key: str, default: int, least: int) -> int:
 
 
 def period_of(circuit: "Circuit", name: str) -> float:
-    """The period (s) of a named element's PWM gate or periodic source waveform."""
+    """The period (s) of a named element's PWM gate (a switch, a transistor) or periodic source waveform."""
     from ..elements.switches import PwmGate
     from ..waveforms import Pulse, Sine
 
@@ -108,9 +108,9 @@ def period_of(circuit: "Circuit", name: str) -> float:
         close = difflib.get_close_matches(name, list(circuit.elements), n=1)
         raise UnknownNameError(f"simulate periodic period-of={name}: no element named {name!r}",
                                hint=f"did you mean {close[0]!r}?" if close else None)
-    gate = getattr(element, "gate", None)
-    if isinstance(gate, PwmGate):
-        return gate.period
+    for gate in (getattr(element, "gate", None), getattr(element, "spec", None)):  # compiled, or as given
+        if isinstance(gate, PwmGate):
+            return gate.period
     for value in element.params.values():
         if isinstance(value, (Pulse, Sine)):
             return 1.0 / value.frequency
