@@ -2,7 +2,8 @@
 
 Covers the lexer and parser (random text and token soup), units (random
 quantity text), expressions, element arguments with a short run, the
-settings of a transient run, and mutations of the example circuits.
+settings of a transient run, measure and check lines, and mutations of the
+example circuits.
 
 Quick by default (a few hundred examples in all, derandomised so CI is
 repeatable). For a real campaign set ``MNA_FUZZ_EXAMPLES`` (examples per
@@ -248,6 +249,43 @@ def test_transient_settings(options):
     text = (BASE + "inductor L1 b -> gnd 1 mH\n"
             f"simulate transient {line} step-limit=300 edge-limit=300 point-limit=1000\n")
     survives(text, run=True)
+
+
+# --------------------------------------------------------------------------
+# Measure and check lines on a short run.
+
+MEASURES = ["max", "min", "peak", "mean", "rms", "final", "at", "crossing", "settling", "overshoot", "integral",
+            "ripple", "undefined"]
+SIGNALS = ["v(b)", "i(C1)", "p(R1)", "v(a, b)", "v(nowhere)", "i(R1) * v(b)"]
+RC = ("voltage-source V1 a -> gnd step(to=10 V, at=0.1 ms)\nresistor R1 a -> b 1 kohm\n"
+      "capacitor C1 b -> gnd 100 nF\nsimulate transient until=1 ms step-limit=300 point-limit=1000\n")
+
+
+@st.composite
+def measure_line(draw):
+    func = draw(st.sampled_from(MEASURES))
+    args = [draw(st.sampled_from(SIGNALS))]
+    args += draw(st.lists(st.one_of(quantity, st.builds(lambda k, q: f"{k}={q}", st.sampled_from(
+        ["from", "to", "band", "level", "direction", "after"]), quantity)), max_size=3))
+    call = f"{func}({', '.join(args)})"
+    tail = draw(st.sampled_from(["", " * 2", " / 0 V", " ^ 2", " - 1e300 V"]))
+    if draw(st.booleans()):
+        return f"measure m = {call}{tail}"
+    return f"check {call}{tail} {draw(st.sampled_from(['<', '>', '<=']))} {draw(quantity)}"
+
+
+@budget(40)
+@given(st.lists(measure_line(), min_size=1, max_size=3))
+def test_measure_and_check_lines(lines):
+    from mna.measure import run_and_check
+
+    lines = [line.replace("measure m =", f"measure m{k} =") for k, line in enumerate(lines)]  # distinct names
+    text = RC + "\n".join(lines) + "\n"
+    with time_bound(text):
+        try:
+            run_and_check(mna.parse(text, "fuzz.mna"))
+        except MnaError:
+            pass
 
 
 # --------------------------------------------------------------------------
