@@ -36,7 +36,18 @@ _UMASK_LOCK = threading.Lock()
 
 
 def umask() -> int:
-    """The process's file-creation mask (read without changing it for long)."""
+    """The process's file-creation mask.
+
+    Read from ``/proc/self/status`` where there is one (Linux), so it is never
+    changed; elsewhere set and restored at once (``os.umask`` only writes it).
+    """
+    try:
+        with open("/proc/self/status", encoding="ascii") as fh:
+            for line in fh:
+                if line.startswith("Umask:"):
+                    return int(line.split()[1], 8)
+    except (OSError, ValueError, IndexError):
+        pass
     with _UMASK_LOCK:
         mask = os.umask(0o022)
         os.umask(mask)
