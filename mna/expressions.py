@@ -275,6 +275,9 @@ def _scalar_binary(expr: BinaryOp, left: Quantity, right: Quantity) -> Quantity:
         if not right.dim.is_dimensionless:
             raise UnitsError(f"an exponent must be a plain number, got {describe(right.dim)}", expr.right.span)
         exponent = right.value
+        if left.value < 0 and not float(exponent).is_integer():
+            raise InputError(f"a negative number ({left.value:g}) to the fractional power {exponent:g} has "
+                             "no real value", expr.span)
         if not left.dim.is_dimensionless:
             if abs(exponent) > MAX_UNIT_EXPONENT:
                 raise UnitsError(f"a quantity with a unit raised to the power {exponent:g}: units take "
