@@ -132,6 +132,7 @@ def test_corners_take_every_combination_of_limits():
     ("monte-carlo runs=10\n", "needs at least one spread line", 10, 1),
     ("spread Rv gaussian 10 %\nmonte-carlo runs=3\n", "unknown distribution 'gaussian'", 10, 11),
     ("spread Rv uniform 2 V\nmonte-carlo runs=3\n", "a percentage or a value in ohms", 10, 19),
+    ("spread Rv uniform 10\nmonte-carlo runs=3\n", "10 has no unit; write 10 % for a share", 10, 19),
     ("spread Rv uniform 10 % clip=20 %\nmonte-carlo runs=3\n", "clip= applies to a normal spread only", 10, 24),
     ("spread Rv normal 10 %\ncorners\n", "normal without clip=", 10, 8),
     ("spread Rq uniform 10 %\nmonte-carlo runs=3\n", "no parameter or element named 'Rq'", 10, 8),

@@ -531,6 +531,10 @@ def _spread(st: nl.SpreadStatement, params, target_dim: Dimension) -> Spread:
         raise InputError(f"spread {label}: unknown distribution {st.distribution!r}", st.distribution_span,
                          hint="uniform HALF-WIDTH or normal STANDARD-DEVIATION, each in % or in the value's unit")
     amount = evaluate(st.amount, params)
+    for expr in [st.amount] + [a.value for a in st.arguments]:
+        if target_dim != DIMENSIONLESS and _is_bare_number(expr.text if isinstance(expr, nl.Number) else "x"):
+            raise UnitsError(f"spread {label}: {expr.text} has no unit; write {expr.text} % for a share of the "
+                             f"nominal or {expr.text} {unit_symbol(target_dim)} for an absolute spread", expr.span)
     relative = amount.dim == DIMENSIONLESS and target_dim != DIMENSIONLESS or _is_percent(st.amount)
     if not relative and amount.dim != target_dim:
         raise UnitsError(f"spread {label}: the spread is a percentage or a value in {describe(target_dim)}; "
