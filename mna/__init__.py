@@ -7,7 +7,7 @@ Architecture (data flows one way; each arrow is one module):
          --check--> topology                         mna.topology
          --compile--> System (sparse MNA)            mna.system (elements stamp through a Stamper)
          --analyse--> Waveforms / OperatingPoint     mna.analyses.dc, mna.analyses.transient
-                                                     (mna.integrate, mna.solver)
+                                                     (mna.methods, mna.solver)
          --write--> CSV, JSON, PNG                   mna.results, mna.report, mna.cli
 
 Element kinds are plugins (entry-point group ``mna.elements``), see

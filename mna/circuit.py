@@ -39,6 +39,7 @@ from .elements.base import ELEMENT, ELECTRICAL, REFERENCE, SHAFT, THERMAL, Arg, 
 from .elements.registry import is_builtin, lookup, suggest
 from .errors import InputError, NetlistSyntaxError, Span, UnitsError, UnknownNameError, plugin_fault
 from .expressions import FUNCTIONS, children, evaluate, walk
+from .methods import METHODS
 from .units import (
     AMPERE,
     DIMENSIONLESS,
@@ -71,8 +72,7 @@ from .waveforms import Constant, Piecewise, Pulse, Sine, Step, Waveform
 TRANSIENT_SETTINGS: dict[str, Arg] = {
     "until": Arg("until", SECOND, positive=True, doc="end time"),
     "step": Arg("step", SECOND, default=None, positive=True, doc="fixed time step"),
-    "method": Arg("method", None, default="backward-euler", kind="choice",
-                  choices=("backward-euler", "trapezoidal", "bdf2")),
+    "method": Arg("method", None, default="backward-euler", kind="choice", choices=tuple(METHODS)),
     "start": Arg("start", None, default="dc", kind="choice", choices=("dc", "rest")),
     "tolerance": Arg("tolerance", DIMENSIONLESS, default=None, positive=True,
                      doc="relative local error per step (error-controlled runs)"),

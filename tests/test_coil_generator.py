@@ -144,13 +144,10 @@ def test_hand_crank_spin_down_converts_kinetic_energy():
     # the two backward-Euler steps the run starts with add (h w)^2/2 each.
     np.testing.assert_allclose(res["w(rotor)"], w_ref, rtol=3e-5)
     np.testing.assert_allclose(res["angle(G1)"], theta_ref, rtol=3e-5, atol=1e-6)
-    # The coil's own angle and the post-hoc (trapezoid) integral of the
-    # shaft speed agree but for the first two steps, which the engine takes
-    # by backward Euler (h w1 instead of h (w0 + w1)/2), and the start at
-    # rest (w0 * 1e-9 h): a constant offset of at most those.
-    w, h = res["w(rotor)"], res.time[1]
-    offset = 0.5 * h * (abs(w[1] - w[0]) + abs(w[2] - w[1])) + w0 * 1e-9 * h
-    assert np.max(np.abs(res["angle(rotor)"] - res["angle(G1)"])) <= 1.01 * offset + 1e-12
+    # The post-hoc angle of the shaft integrates the recorded speed over the
+    # method's dense output (three points per step, not the chord between
+    # steps): it meets the same reference, to the same tolerance.
+    np.testing.assert_allclose(res["angle(rotor)"], theta_ref, rtol=3e-5, atol=1e-6)
     lost = 0.5 * J * (w0**2 - res["w(rotor)"][-1] ** 2)
     assert np.trapezoid(r_total * res["i(G1)"] ** 2, res.time) == pytest.approx(lost, rel=1e-4)
 

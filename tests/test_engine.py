@@ -7,7 +7,7 @@ import pytest
 
 import mna
 from mna.analyses.common import prepare
-from mna.integrate import BackwardEuler, Trapezoidal
+from mna.methods import BackwardEuler, Trapezoidal
 
 RLC = """
 voltage-source V1 in -> gnd step(from=0 V, to=1 V, at=0 s)
@@ -31,6 +31,9 @@ def test_backward_euler_inductor_is_resistance_L_over_h_in_series_with_a_source(
     # (L/h)*i_n. One real step of the engine from initial= i_n must give the
     # current of that companion circuit: V drives R + L/h aided by (L/h) i_n.
     L, R, h, i_n, V = 10e-3, 2.0, 1e-4, 0.3, 5.0
+    # The method's own formula (mna/methods/backward_euler.py): qdot = (q - q_n)/h,
+    # i.e. alpha = 1/h and history = -q_n/h, so L di/dt -> (L/h) i - (L/h) i_n.
+    assert BackwardEuler.coefficients(h, None) == (1.0 / h, -1.0 / h, 0.0, 0.0)
     c = mna.parse(f"voltage-source V1 in -> gnd {V} V\n"
                   f"inductor L1 in -> gnd {L} H resistance={R} ohm initial={i_n} A\n")
     res = c.transient(until=h, step=h, method="backward-euler", start="rest", record=["i(L1)"])
@@ -51,7 +54,7 @@ def test_backward_euler_inductor_is_resistance_L_over_h_in_series_with_a_source(
 
 def test_trapezoidal_capacitor_companion():
     # Hairer & Wanner, *Solving Ordinary Differential Equations II*, from memory: trapezoidal capacitor G = 2C/h, I_eq = -(2C/h) v_n - i_n.
-    alpha, b0, b1, g0 = Trapezoidal().coefficients(1e-6, 1e-6)
+    alpha, b0, b1, g0 = Trapezoidal.coefficients(1e-6, 1e-6)
     C, v_n, i_n = 1e-6, 2.0, 0.5
     # i_{n+1} = alpha*C*v_{n+1} + b0*C*v_n + g0*i_n
     assert alpha * C == pytest.approx(2 * C / 1e-6)

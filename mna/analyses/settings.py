@@ -18,11 +18,12 @@ from numbers import Real
 from typing import Any
 
 from ..errors import InputError, Span
-from ..integrate import IntegrationMethod, get_method
+from ..methods import Stepper, get_method
 from ..runstate import CircuitState
 from ..limits import (DEFAULT_EDGE_LIMIT, DEFAULT_MEMORY_LIMIT_MB, DEFAULT_POINT_LIMIT, DEFAULT_STEP_LIMIT,
                       Limits)
 
+DEFAULT_METHOD = "backward-euler"
 DEFAULT_TOLERANCE = 1e-3  # relative local error per step
 DEFAULT_VOLTAGE_TOLERANCE = 1e-6  # V, absolute floor of the local error
 DEFAULT_CURRENT_TOLERANCE = 1e-9  # A
@@ -65,8 +66,7 @@ class TransientSettings:
             self.notes.append(f"step={self.step:.6g} s is longer than until={self.until:.6g} s: "
                               f"the run takes one step of {self.until:.6g} s")
             self.step = self.until
-        method = settings.get("method") or "backward-euler"
-        self.method: IntegrationMethod = get_method(method)
+        self.method: type[Stepper] = get_method(settings.get("method") or DEFAULT_METHOD)
         self.start = settings.get("start") or "dc"
         #: A run continuing from an earlier run's end (start=CircuitState): its
         #: time is the run's start time t0.

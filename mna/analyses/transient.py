@@ -1,37 +1,35 @@
-"""Transient analysis: fixed or error-controlled steps, exact corners, events.
+"""Transient analysis: the run loop over a stepper, corners, events, recording.
 
-**Fixed step** (``step=`` given): the time points are ``k * step`` from 0 to
-``until`` with every waveform corner and gate edge inserted; a grid point
-closer to a corner than a millionth of a step is dropped so no step is
-absurdly short.
+The integration method is a stepper (:mod:`mna.methods`): it owns its
+history, its error estimate, its dense output and its restart after a
+discontinuity. This module never asks which method it runs; it
 
-**Error-controlled steps** (no ``step=``): each step's local truncation
-error is estimated from divided differences of the charge and flux history
-(the method's own error constant times the matching derivative), measured
-against ``tolerance`` relative to the largest magnitude each charge or flux
-has reached so far, plus an absolute floor from ``voltage-tolerance`` and
-``current-tolerance``. A step whose error is too large is rejected and
-retried smaller; the next step grows by at most a factor of 4 and never
-beyond ``max-step``; it grows only when the error allows at least 1.5x.
-Step sizes are rounded down to a ladder of half powers of two, so the few
-distinct matrices that result are factored once each and reused from a
-cache.
+1. picks where the next step ends: the next corner (waveform kink, PWM
+   edge, schedule time) is landed on exactly, a step is capped by
+   ``max-step``; with ``step=`` the points are the fixed grid;
+2. asks the stepper for a step there and handles a rejection (the stepper
+   has already shortened its step) or a Newton failure (a quarter of the
+   step, down to ``min-step``);
+3. looks for a switching event on the step's dense output and, if there is
+   one, steps again to land on it;
+4. records the step's end and two points of its dense output inside it,
+   so measurements and resampling see the method's own polynomial;
+5. after a corner or an event restarts the stepper. A state change, and an
+   ideal source edge (zero rise or fall time), also record a second sample
+   at the same time, solved just after it (the switch voltage at 0+), so
+   the waveforms hold both sides of the jump.
 
-**Corners and events**: every corner (waveform kink, PWM edge, schedule
-time) is landed on exactly. At a corner, and whenever a switched element
-changes state, the integration history is cut: the next steps are
-first-order (backward Euler) steps, so the trapezoidal rule does not ring on
-the edge. A state change, and an ideal source edge (zero rise or fall
-time), also record a second sample at the same time, solved just after it
-(the switch voltage at 0+), so the waveforms hold both sides of the jump.
+**Error control** (no ``step=``): each method measures its local error on
+the rows of q that hold charge or flux, against ``tolerance`` relative to
+the largest magnitude each has reached so far, plus an absolute floor from
+``voltage-tolerance`` and ``current-tolerance``. A circuit that stores no
+energy (no capacitor, no inductor) has no local error: its steps go from
+corner to corner, capped by ``max-step``.
 
 **Failure**: a step whose Newton iteration does not converge is retried at
 a quarter of its length, down to ``min-step``; then the run stops with a
 :class:`~mna.errors.SimulationError` naming the time and the unknowns that
 did not settle, holding the waveforms computed so far in ``.partial``.
-
-Per step on a linear circuit the work is one sparse mat-vec for the
-history, one source evaluation per waveform kind, and one triangular solve.
 """
 
 from __future__ import annotations
@@ -42,15 +40,16 @@ from typing import TYPE_CHECKING, Any, Sequence
 
 import numpy as np
 
-from ..values import SignalRef
+from .. import limits
 from ..errors import InputError, SimulationError
-from ..integrate import IntegrationMethod, get_method
+from ..methods import Step, Stepper, get_method
+from ..methods.base import CANDIDATE, NOT_CONVERGED
 from ..results import Waveforms
 from ..runstate import CircuitState, DiscreteStates
 from ..solver import Factorizer, SingularMatrix, newton, raise_singular
 from ..system import Probe, System
-from .. import limits
 from ..units import AMPERE, KELVIN, VOLT
+from ..values import SignalRef
 from .common import compute_signal, dc_leak, default_signals, plan, prepare, require_finite, unit_label
 from .dc import solve_dc
 from .settings import DEFAULT_TOLERANCE
@@ -75,14 +74,14 @@ JUMP_GUESS_ITERATIONS = 6
 
 RETRY_FACTOR = 0.25
 RESTART_FRACTION = 0.01  # first step after a corner or event, relative to the step before
-MAX_GROWTH = 4.0
-SAFETY = 0.85
 LADDER = 2  # step sizes are rounded down to 2**(k/LADDER) * until
-GROWTH_THRESHOLD = 1.5  # a step grows only if the error allows at least this factor
 #: A step this much shorter than the gap to the next corner is stretched to
 #: land on it (the error test then judges the longer step), rather than
 #: split into two halves.
 LANDING_STRETCH = 1.1
+#: Where inside each step the dense output is recorded (fractions of the step).
+INNER_POINTS = (1.0 / 3.0, 2.0 / 3.0)
+PIECES = 4
 
 
 def time_grid(until: float, step: float, corners: np.ndarray, start: float = 0.0) -> np.ndarray:
@@ -104,26 +103,40 @@ def time_grid(until: float, step: float, corners: np.ndarray, start: float = 0.0
 
 
 class _Recorder:
-    """Growable storage of the recorded unknowns and state rates."""
+    """Growable storage of the recorded unknowns and state rates.
+
+    Row k holds the point at ``t[k]``; ``inner_x[k]``/``inner_r[k]`` the
+    dense output at INNER_POINTS of the step that ends there (for k = 0,
+    and for the second sample of a jump, copies of the point itself).
+    """
 
     def __init__(self, n_x: int, n_rates: int, capacity: int):
         capacity = max(capacity, 16)
         self.t = np.empty(capacity)
         self.x = np.empty((capacity, n_x))
         self.r = np.empty((capacity, n_rates))
+        self.inner_x = np.empty((capacity, len(INNER_POINTS), n_x))
+        self.inner_r = np.empty((capacity, len(INNER_POINTS), n_rates))
         self.count = 0
 
-    def add(self, t: float, x: np.ndarray, rates: np.ndarray) -> None:
+    @property
+    def width(self) -> int:
+        """Numbers stored per recorded point."""
+        return (self.x.shape[1] + self.r.shape[1]) * (len(INNER_POINTS) + 1)
+
+    def add(self, t: float, x: np.ndarray, rates: np.ndarray, inner_x=None, inner_r=None) -> None:
         k = self.count
         if k == self.t.size:
             grow = max(16, k)
-            limits.current().check_memory(k + grow, self.x.shape[1] + self.r.shape[1], time=float(t))
-            self.t = np.concatenate([self.t, np.empty(grow)])
-            self.x = np.concatenate([self.x, np.empty((grow, self.x.shape[1]))])
-            self.r = np.concatenate([self.r, np.empty((grow, self.r.shape[1]))])
+            limits.current().check_memory(k + grow, self.width, time=float(t))
+            for name in ("t", "x", "r", "inner_x", "inner_r"):
+                a = getattr(self, name)
+                setattr(self, name, np.concatenate([a, np.empty((grow,) + a.shape[1:])]))
         self.t[k] = t
         self.x[k] = x
         self.r[k] = rates
+        self.inner_x[k] = x if inner_x is None else inner_x
+        self.inner_r[k] = rates if inner_r is None else inner_r
         self.count = k + 1
 
 
@@ -146,20 +159,97 @@ def transient(circuit: "Circuit", settings: dict[str, Any], records: Sequence[Si
     return waves
 
 
+class _Timeline:
+    """Where steps may end: the corners (adaptive runs) or the fixed grid, and the source jumps."""
+
+    def __init__(self, system: System, cfg: _Settings):
+        until, t0 = self.until, self.t0 = cfg.until, cfg.t0
+        corners = system.corners(t0, until)
+        self.corners = corners[(corners > t0) & (corners < until)]
+        jumps = system.jumps(t0, until)
+        self.jumps = jumps[(jumps > t0) & (jumps < until)]
+        self.fixed = cfg.step is not None
+        self.step = cfg.step
+        self.max_step = cfg.max_step
+        self.ladder = system.is_piecewise_linear
+        if self.fixed:
+            self.grid = time_grid(until, cfg.step, self.corners, t0)
+            self.grid_corner = _corner_flags(self.grid, self.corners)
+        self.k = 1  # next grid point
+        self.i = 0  # next corner
+
+    def first_step(self) -> float:
+        """The first step to try (s)."""
+        if self.fixed:
+            return self.step
+        gap = (self.corners[0] if self.corners.size else self.until) - self.t0
+        return min(self.max_step, gap, self.until) * 1e-3
+
+    def next_corner(self, t: float) -> float:
+        while self.i < self.corners.size and self.corners[self.i] <= t * (1 + 1e-15):
+            self.i += 1
+        return self.corners[self.i] if self.i < self.corners.size else self.until
+
+    def target(self, t: float, h: float) -> tuple[float, float, bool]:
+        """(end of the next step (s), its length (s), whether it lands on a corner or grid point)."""
+        if self.fixed:
+            target = self.grid[self.k]
+            if h >= (target - t) * (1 - 1e-9):
+                return target, _snap(target - t, self.step), True
+            return t + h, _snap(h, self.step), False
+        h = min(h, self.max_step)
+        corner = self.next_corner(t)
+        gap = corner - t
+        if h * LANDING_STRETCH >= gap:
+            return corner, gap, True
+        if h > 0.5 * gap:
+            h = 0.5 * gap
+        if self.ladder:
+            h = _ladder(h, self.until)
+        return t + h, h, False
+
+    def gap(self, t: float) -> float:
+        return self.next_corner(t) - t
+
+    def insert_event(self, te: float) -> None:
+        """An event at te (s) inside the next step: land on it first."""
+        if self.fixed:
+            self.grid = np.insert(self.grid, self.k, te)
+            self.grid_corner = np.insert(self.grid_corner, self.k, False)
+        else:
+            self.corners = np.insert(self.corners, self.i, te)
+
+    def landed(self, t: float) -> tuple[bool, bool]:
+        """After a step landed at t: (restart the method here, a source jumps here)."""
+        restart = True
+        if self.fixed:
+            self.k += 1
+            restart = bool(self.grid_corner[self.k - 1])
+        jumped = bool(restart and self.jumps.size and _contains(self.jumps, t))
+        return restart, jumped
+
+
 class _Run:
-    """One transient run: state, history and the time loop."""
+    """One transient run: everything it changes, and the loop.
+
+    It is also the :class:`~mna.methods.Problem` its stepper works on:
+    :meth:`solve`, :meth:`charges`, :meth:`rates`, :meth:`jacobians`,
+    :meth:`error_norm`, :meth:`state_key`.
+    """
 
     def __init__(self, system: System, cfg: _Settings, need_x: list[int], need_states: list[int], report):
         self.system = system
         self.cfg = cfg
-        self.method = cfg.method
         self.need_x = np.asarray(need_x, dtype=np.int64)
         self.need_states = list(need_states)
         self.Cs_rec = system.Cs[need_states] if need_states else None
         self.report = report
         self.factorizer = Factorizer(system, cache_size=16)
+        self.tolerance = cfg.tolerance
+        self.stepper: Stepper | None = None
         capacity = int(min(cfg.until / cfg.step, 5e7)) + 16 if cfg.step else 4096
-        cfg.limits.check_memory(capacity, len(need_x) + len(need_states))
+        self.rec = _Recorder(len(need_x), len(need_states), 16)
+        cfg.limits.check_memory(capacity, self.rec.width)
         self.rec = _Recorder(len(need_x), len(need_states), capacity)
         self.stats = {"accepted": 0, "rejected": 0, "newton_iterations": 0, "events": 0,
                       "retries": 0}
@@ -190,6 +280,7 @@ class _Run:
         self.q_rows = np.array(sorted(q_rows), dtype=np.int64)
         self.q_atol = self.q_atol[self.q_rows] if self.q_rows.size else np.empty(0)
         self.q_scale = np.zeros(self.q_rows.size)
+        self.x_before: np.ndarray | None = None  # the values at the current point
         #: The accepted first step after a restart into each switch state.
         self.restart_memory: dict = {}
         #: The values after the last jump into each switch state (Newton's guess).
@@ -242,6 +333,27 @@ class _Run:
     def charges(self, x: np.ndarray, t: float) -> np.ndarray:
         return self.system.C @ x if not self.system.batches else self.system.charges(x, t, self.discrete)
 
+    def rates(self, x: np.ndarray, t: float) -> np.ndarray:
+        return self.system.rates(x, t, self.discrete)
+
+    def jacobians(self, x: np.ndarray, t: float) -> tuple[np.ndarray, np.ndarray]:
+        """CSC data of df/dx and dq/dx at (x, t) on the system's pattern."""
+        system = self.system
+        jf = jq = None
+        if system.batches:
+            _, _, jf, jq = system.evaluate_batches(x, t, self.discrete)
+        data_f = system.matrix_data(0.0, jf, None)
+        data_q = system.matrix_data(1.0, None, jq) - system.G_data
+        return data_f, data_q
+
+    def error_norm(self, lte: np.ndarray, q_new: np.ndarray) -> float:
+        """Largest |lte| over the charge and flux rows in units of their tolerance."""
+        tol = self.tolerance * np.maximum(self.q_scale, np.abs(q_new)) + self.q_atol
+        return float(np.max(np.abs(lte) / tol))
+
+    def state_key(self):
+        return self.version
+
     # -- events -------------------------------------------------------------------
     def update_events(self, t: float, x: np.ndarray) -> bool:
         changed = self.discrete.update(t, x)
@@ -257,8 +369,17 @@ class _Run:
         return self.discrete.event_time(t0, x0, t1, x1)
 
     # -- the loop -------------------------------------------------------------------
-    def record(self, t: float, x: np.ndarray, rates: np.ndarray) -> None:
-        self.rec.add(t, x[self.need_x], rates)
+    def record(self, t: float, x: np.ndarray, rates: np.ndarray, dense=None) -> None:
+        inner_x = inner_r = None
+        if dense is not None:
+            times = dense.t_old + np.array(INNER_POINTS) * (dense.t - dense.t_old)
+            inner_x = dense(times)[:, self.need_x]
+            if self.Cs_rec is not None:
+                inner_r = (self.Cs_rec @ dense.derivative(times).T).T
+        self.rec.add(t, x[self.need_x], rates, inner_x, inner_r)
+
+    def state_rates(self, xdot: np.ndarray) -> np.ndarray:
+        return self.Cs_rec @ xdot if self.Cs_rec is not None else np.empty(0)
 
     def initial_point(self) -> np.ndarray:
         cfg, system = self.cfg, self.system
@@ -344,317 +465,166 @@ class _Run:
             )
         return x_new
 
+
     def execute(self) -> None:
-        cfg, system, method = self.cfg, self.system, self.method
-        until, t0 = cfg.until, cfg.t0
-        corners = system.corners(t0, until)
-        corners = corners[(corners > t0) & (corners < until)]
-        fixed = cfg.step is not None
-        grid = time_grid(until, cfg.step, corners, t0) if fixed else None
-        grid_corner = _corner_flags(grid, corners) if fixed else None
-        jumps = system.jumps(t0, until)
-        jumps = jumps[(jumps > t0) & (jumps < until)]
-        grid_k = 1
-
-        x = self.initial_point()
-        q = self.charges(x, t0)
-        q_prev = q
-        qdot = np.zeros(system.n)
-        Cs = self.Cs_rec
-        qs = Cs @ x if Cs is not None else np.empty(0)
-        qs_prev = qs
-        rates = np.zeros(qs.size)
-        self.record(t0, x, rates)
-        # History of accepted (t, q-rows) since the last restart, for error estimates.
-        hist_t: list[float] = [t0]
-        hist_q: list[np.ndarray] = [q[self.q_rows]]
-        self.q_scale = np.abs(hist_q[0])
-
-        t = t0
-        h_prev: float | None = None
-        order = method.order
-        if fixed:
-            h = cfg.step
-        else:
-            gap = (corners[0] if corners.size else until) - t0
-            h = min(cfg.max_step, gap, until) * 1e-3
-        corner_i = 0
-        progress = cfg.progress
+        """The time loop: step, record, restart after corners and events."""
+        cfg = self.cfg
+        line = _Timeline(self.system, cfg)
+        t0 = cfg.t0
+        x = self.x_before = self.initial_point()
+        self.record(t0, x, np.zeros(len(self.need_states)))
+        self.q_scale = np.abs(self.charges(x, t0)[self.q_rows])
+        stepper = self.stepper = cfg.method(self, t0, x, line.first_step(), self.starting_rates(x))
+        self.h_smooth = stepper.h
+        self.restart_key = None
+        self.since_restart = 0
         next_report = _time.perf_counter() + 0.2
-        uses_qdot = method.uses_derivative
-        C = system.C
-        plain = not system.batches
-        adaptive = not fixed
-        landing = False
-        restart_steps = method.restart_steps
-        since_restart = 0
-        x_last = None
-        # After a restart with a jump solve: the rates of the charge and flux
-        # rows just after the discontinuity (for the first step's error
-        # estimate), and the key under which that first step is remembered.
-        qdot0 = None
-        rates0 = None
-        # The trapezoidal rule may take the first step after a restart itself
-        # when the rates there are exact (from -f after a jump solve): the
-        # derivative it inherits is then not left over from before the edge.
-        exact_rates = False
-        restart_key = None
-        h_smooth = h
-        if adaptive and self.q_rows.size:
-            # The first step is error-controlled from the start when the
-            # starting point is consistent just after t = 0: a start at rest
-            # (solved at 0+), or an operating point with no ideal edge at 0.
-            if cfg.start == "rest":
-                rates0 = self.rates_after_jump(x, 0.0, self.start_h0, system.q_initial, q)
-            elif cfg.start == "state":
-                rates0 = self.rates_after_jump(x, t0, self.start_h0, self.q_start, q)
-            elif not _contains(system.jumps(t0 - 1.0 - abs(t0), t0), t0):
-                rates0 = system.rates(x, t0, self.discrete)
-            if rates0 is not None:
-                qdot0 = rates0[self.q_rows]
-                if uses_qdot:
-                    qdot, exact_rates = rates0, True
-
-        while t < until:
+        while stepper.t < cfg.until:
             cfg.limits.check_run(self.stats["accepted"] + self.stats["rejected"] + self.stats["retries"],
-                                 self.rec.count, t)
-            if progress is not None and _time.perf_counter() > next_report:
-                progress(t, until)
+                                 self.rec.count, stepper.t)
+            if cfg.progress is not None and _time.perf_counter() > next_report:
+                cfg.progress(stepper.t, cfg.until)
                 next_report = _time.perf_counter() + 0.2
-            # -- choose the next time point
-            while corner_i < corners.size and corners[corner_i] <= t * (1 + 1e-15):
-                corner_i += 1
-            next_corner = corners[corner_i] if corner_i < corners.size else until
-            if fixed:
-                target = grid[grid_k]
-                if h >= (target - t) * (1 - 1e-9):
-                    t_new, h_try, landing = target, target - t, True
-                else:
-                    t_new, h_try, landing = t + h, h, False
-                h_try = _snap(h_try, cfg.step)
-            else:
-                h_try = min(h, cfg.max_step)
-                if since_restart > 0:
-                    h_smooth = h_try
-                gap = next_corner - t
-                if h_try * LANDING_STRETCH >= gap:
-                    h_try, t_new, landing = gap, next_corner, True
-                else:
-                    if h_try > 0.5 * gap:
-                        h_try = 0.5 * gap
-                    if self.pwl:
-                        h_try = _ladder(h_try, until)
-                    t_new, landing = t + h_try, False
-            # -- solve
-            if since_restart >= restart_steps:
-                alpha, b0, b1, g0 = method.coefficients(h_try, h_prev)
-            elif exact_rates:
-                alpha, b0, b1, g0 = method.coefficients(h_try, h_prev or h_try)
-            else:
-                alpha, b0, b1, g0 = method.coefficients(h_try, None)
-            history = b0 * q
-            if b1:
-                history = history + b1 * q_prev
-            if g0:
-                history = history + g0 * qdot
-            # Newton starts from the linear extrapolation of the last two
-            # points (within a smooth stretch), which often converges at once.
-            guess = x
-            if not self.pwl and x_last is not None and since_restart >= 1 and h_prev:
-                guess = x + (x - x_last) * (h_try / h_prev)
+            step, landing = self.advance(stepper, line)
+            self.accept(stepper, step)
+            if landing or self.event_batches:
+                self.after_step(stepper, line, step, landing)
+            if stepper.t >= cfg.until * (1 - 1e-14):
+                break
+        stepper.finish()
+        self.end = (stepper.t, self.x_before)  # the values at the end, after any event there
+
+    def starting_rates(self, x: np.ndarray) -> np.ndarray | None:
+        """d/dt q just after t = 0 when the start is consistent there, else None.
+
+        A start at rest is solved at 0+; an operating point is consistent
+        unless an ideal edge happens at t = 0.
+        """
+        if self.cfg.step is not None or not self.q_rows.size:
+            return None
+        t0 = self.cfg.t0
+        if self.cfg.start == "rest":
+            return self.rates_after_jump(x, 0.0, self.start_h0, self.system.q_initial, self.charges(x, 0.0))
+        if self.cfg.start == "state":
+            return self.rates_after_jump(x, t0, self.start_h0, self.q_start, self.charges(x, t0))
+        if not _contains(self.system.jumps(t0 - 1.0 - abs(t0), t0), t0):
+            return self.system.rates(x, t0, self.discrete)
+        return None
+
+    def advance(self, stepper: Stepper, line: _Timeline) -> tuple[Step, bool]:
+        """One step the error test accepts, ending before any event: (step, landed on a corner)."""
+        cfg = self.cfg
+        while True:
+            t_new, h_try, landing = line.target(stepper.t, stepper.h)
+            if self.since_restart > 0:
+                self.h_smooth = min(stepper.h, cfg.max_step)
             try:
-                x_new = self.solve(guess, t_new, alpha, history)
+                step = stepper.attempt(t_new, h_try, error_control=not line.fixed)
             except SingularMatrix as exc:
+                stepper.fail()
                 raise_singular(exc, time=t_new, step=h_try, what=f"transient at t = {t_new:.6g} s")
-            if x_new is None:
+            if step.status == NOT_CONVERGED:
                 self.stats["retries"] += 1
-                h = h_try * RETRY_FACTOR
-                if h < cfg.min_step:
+                stepper.h = h_try * RETRY_FACTOR
+                if stepper.h < cfg.min_step:
+                    stepper.fail()
                     raise SimulationError(
                         f"no convergence at t = {t_new:.6g} s even with a step of {h_try:.3g} s; "
                         "unknowns still moving: " + ", ".join(self._worst),
                         time=t_new, step=h_try, unknowns=tuple(self._worst),
                     )
                 continue
-            # -- events inside the step: land on the first one
-            if self.event_batches:
-                te = self.event_time(t, x, t_new, x_new)
-                if te is not None and te - t > max(cfg.min_step, 1e-6 * h_try) and t_new - te > 1e-9 * h_try:
-                    h = te - t
-                    if fixed:
-                        grid = np.insert(grid, grid_k, te)
-                        grid_corner = np.insert(grid_corner, grid_k, False)
-                    else:
-                        corners = np.insert(corners, corner_i, te)
-                    continue
-            q_new = C @ x_new if plain else self.charges(x_new, t_new)
-            # -- local error (adaptive runs only)
-            h_next = h
-            if not fixed and self.q_rows.size:
-                err = self.local_error(hist_t, hist_q, t_new, q_new[self.q_rows], h_try, h_prev, order,
-                                       qdot0 if since_restart <= 1 else None,
-                                       confluent=exact_rates and since_restart == 1)
-                if err is not None:
-                    # (backward-Euler restart steps, and the first step from
-                    # exact rates, have first-order estimates)
-                    if since_restart >= restart_steps or (exact_rates and since_restart >= 1):
-                        step_order = order
-                    else:
-                        step_order = 1
-                    factor = SAFETY * (max(err, 1e-10) ** (-1.0 / (step_order + 1)))
-                    if err > 1.0:
-                        self.stats["rejected"] += 1
-                        h = h_try * max(0.2, min(factor, 0.9))
-                        if h < cfg.min_step:
-                            raise SimulationError(
-                                f"the step fell below min-step ({cfg.min_step:.3g} s) at t = {t:.6g} s "
-                                "while meeting the error tolerance; loosen tolerance= or check the circuit "
-                                "for an unintended instant jump",
-                                time=t, step=h,
-                            )
-                        continue
-                    # Grow only when it pays (each new step length costs a
-                    # factorisation); shrink as soon as the error asks for it.
-                    if factor >= GROWTH_THRESHOLD:
-                        h_next = h_try * min(MAX_GROWTH, factor)
-                    elif factor >= 1.0:
-                        h_next = h_try
-                    else:
-                        h_next = h_try * factor
-                else:
-                    h_next = h_try * MAX_GROWTH if len(hist_t) > 1 else h_try * 1.5
-            # -- accept
-            q_prev, q = q, q_new
-            if uses_qdot or g0:
-                qdot = alpha * q + history
-            if Cs is not None:
-                qs_new = Cs @ x_new
-                rates = alpha * qs_new + b0 * qs + (b1 * qs_prev if b1 else 0.0) + (g0 * rates if g0 else 0.0)
-                qs_prev, qs = qs, qs_new
-            x_last = x
-            x = x_new
-            t = t_new
-            self.record(t, x, rates)
-            self.stats["accepted"] += 1
-            if adaptive:
-                hist_t.append(t)
-                hist_q.append(q[self.q_rows])
-                if len(hist_t) > 4:
-                    del hist_t[0], hist_q[0]
-                if self.q_rows.size:
-                    np.maximum(self.q_scale, np.abs(hist_q[-1]), out=self.q_scale)
-            if restart_key is not None and since_restart == 0:
-                # What the error allows for this first step, for the next
-                # restart into the same state (so it may grow period by period).
-                self.restart_memory[restart_key] = h_next
-            h_prev = h_try
-            since_restart += 1
-            h = h_next if not fixed else cfg.step
-            if fixed and landing:
-                grid_k += 1
-            # -- corners and events cut the history
-            restart = landing and (not fixed or grid_corner[grid_k - 1])
-            jumped = bool(restart and jumps.size and _contains(jumps, t))
-            switched = bool(self.event_batches) and self.update_events(t, x)
-            qdot0 = restart_key = None
-            if jumped or switched:
-                h0 = max(h_try, cfg.min_step) * JUMP_FRACTION
-                x = self.jump(x, t, h0, q)
-                q_jump = self.charges(x, t)
-                if Cs is not None:
-                    qs_jump = Cs @ x
-                    rates = (qs_jump - qs) / h0
-                    qs = qs_prev = qs_jump
-                if adaptive:
-                    rates0 = self.rates_after_jump(x, t, h0, q, q_jump)
-                    qdot0 = None if rates0 is None else rates0[self.q_rows]
-                q = q_prev = q_jump
-                self.record(t, x, rates)
-                restart = True
-            if restart:
-                h_prev = None
-                since_restart = 0
-                qdot = np.zeros(system.n)
-                exact_rates = qdot0 is not None and uses_qdot
-                if exact_rates:
-                    qdot = rates0
-                if adaptive:
-                    hist_t, hist_q = [t], [q[self.q_rows]]
-                if not fixed:
-                    gap = (corners[corner_i + 1] if corner_i + 1 < corners.size else until) - t
-                    if qdot0 is not None:
-                        # The first step's error is estimated from the rates
-                        # just after the jump, so it may start long: as long
-                        # as the first step after the same state last time,
-                        # or else as the step before; a rejection shortens it.
-                        restart_key = self.version
-                        h = min(self.restart_memory.get(restart_key, h_smooth), gap, cfg.max_step)
-                        h = max(h, cfg.min_step)
-                    else:
-                        # The time scale after a corner is unknown: start
-                        # small and let the error control grow the step.
-                        h = max(RESTART_FRACTION * min(h_try, gap, cfg.max_step), cfg.min_step)
-            if t >= until * (1 - 1e-14):
-                break
-        self.end = (t, x)  # the values at the end, after any event there
+            if step.status != CANDIDATE:
+                self.stats["rejected"] += 1
+                if stepper.h < cfg.min_step:
+                    stepper.fail()
+                    raise SimulationError(
+                        f"the step fell below min-step ({cfg.min_step:.3g} s) at t = {stepper.t:.6g} s "
+                        "while meeting the error tolerance; loosen tolerance= or check the circuit "
+                        "for an unintended instant jump",
+                        time=stepper.t, step=stepper.h,
+                    )
+                continue
+            te = self.event_on(step)
+            if te is not None:
+                stepper.h = te - stepper.t
+                line.insert_event(te)
+                continue
+            return step, landing
 
-    def local_error(self, hist_t, hist_q, t_new, q_new, h, h_prev, order, qdot0=None,
-                    confluent: bool = False) -> float | None:
-        """Largest local truncation error over the charge and flux rows, in units of their tolerance.
-
-        ``qdot0``: the rates at the restart point (after a jump solve). On
-        the first step after a restart they give the backward-Euler error
-        ``h^2 q''/2 = (q1 - q0) - h*qdot0`` (a confluent divided difference,
-        Hermite data at the restart point); an upper bound for a trapezoidal
-        first step. With ``confluent`` (a trapezoidal second step from exact
-        rates) the third divided difference ``q[t0, t0, t1, t2]`` gives the
-        trapezoidal error, h^3/12 times the third derivative, at once.
-        """
-        ts = hist_t + [t_new]
-        qs = hist_q + [q_new]
-        need = order + 2
-        if len(ts) == 2 and qdot0 is not None:
-            lte = (q_new - hist_q[-1]) - h * qdot0
-        elif len(ts) == 3 and qdot0 is not None and confluent:
-            (t0, t1, t2), (q0, q1, q2) = ts, qs
-            d01 = (q1 - q0) / (t1 - t0)
-            d001 = (d01 - qdot0) / (t1 - t0)
-            d012 = ((q2 - q1) / (t2 - t1) - d01) / (t2 - t0)
-            lte = 0.5 * h ** 3 * (d012 - d001) / (t2 - t0)
-        elif len(ts) < 3 or h_prev is None:
+    def event_on(self, step: Step) -> float | None:
+        """The first switching event strictly inside the step, located on its dense output."""
+        if not self.event_batches:
             return None
-        elif len(ts) < need:
-            # Not enough history for the method's own order: use a first-order estimate.
-            lte = h * h * _divided_difference(ts[-3:], qs[-3:])
-        elif order == 1:
-            lte = h * h * _divided_difference(ts[-3:], qs[-3:])
-        else:
-            dd3 = _divided_difference(ts[-4:], qs[-4:])
-            if self.method.name == "bdf2":
-                w = h / h_prev
-                lte = ((1 + w) ** 2 / (w * (1 + 2 * w))) * h ** 3 * dd3
-            else:
-                # trapezoidal: (h^3/12) q''' with q''' = 6 * dd3
-                lte = 0.5 * h ** 3 * dd3
-        tol = self.cfg.tolerance * np.maximum(self.q_scale, np.abs(q_new)) + self.q_atol
-        return float(np.max(np.abs(lte) / tol))
+        t0, t1 = step.t_old, step.t
+        h = t1 - t0
+        pieces = 1 if step.dense.order <= 2 else PIECES
+        times = t0 + h * np.arange(pieces + 1) / pieces
+        xs = [self.x_before] + list(step.dense(times[1:-1])) + [step.x]
+        for a in range(pieces):
+            te = self.event_time(times[a], xs[a], times[a + 1], xs[a + 1])
+            if te is not None:
+                if te - t0 > max(self.cfg.min_step, 1e-6 * h) and t1 - te > 1e-9 * h:
+                    return te
+                return None
+        return None
 
+    def accept(self, stepper: Stepper, step: Step) -> None:
+        stepper.accept(step)
+        if self.cfg.step is not None:
+            stepper.h = self.cfg.step
+        self.x_before = stepper.x
+        self.rates_now = self.state_rates(step.xdot)
+        self.record(step.t, step.x, self.rates_now, step.dense)
+        self.stats["accepted"] += 1
+        if self.cfg.step is None and self.q_rows.size:
+            np.maximum(self.q_scale, np.abs(self.charges(step.x, step.t)[self.q_rows]), out=self.q_scale)
+        if self.restart_key is not None and self.since_restart == 0:
+            # What the error allows for this first step, for the next
+            # restart into the same state (so it may grow period by period).
+            self.restart_memory[self.restart_key] = stepper.h
+        self.since_restart += 1
 
-def _divided_difference(ts: list[float], qs: list[np.ndarray]) -> np.ndarray:
-    """The highest divided difference through the given points (vector-valued).
+    def after_step(self, stepper: Stepper, line: _Timeline, step: Step, landing: bool) -> None:
+        """Corners and events cut the method's history; a jump records both sides."""
+        t, x = stepper.t, stepper.x
+        restart, jumped = line.landed(t) if landing else (False, False)
+        switched = bool(self.event_batches) and self.update_events(t, x)
+        self.restart_key = None
+        if not (restart or jumped or switched):
+            return
+        rates0 = xdot = None
+        h_try = step.h
+        if jumped or switched:
+            h0 = max(h_try, self.cfg.min_step) * JUMP_FRACTION
+            q = self.charges(x, t)
+            x_jump = self.jump(x, t, h0, q)
+            xdot = (x_jump - x) / h0
+            self.rates_now = self.state_rates(xdot)
+            if not line.fixed:
+                rates0 = self.rates_after_jump(x_jump, t, h0, q, self.charges(x_jump, t))
+            x = self.x_before = x_jump
+            self.record(t, x, self.rates_now)
+        stepper.restart(t, x, self.restart_step(line, t, h_try, rates0), rates0, xdot)
+        self.since_restart = 0
 
-    Written as its explicit weights, sum_i q_i / prod_{j != i} (t_i - t_j),
-    so it costs one small matrix-vector product.
-    """
-    n = len(ts)
-    weights = np.empty(n)
-    for i in range(n):
-        d = 1.0
-        for j in range(n):
-            if j != i:
-                d *= ts[i] - ts[j]
-        weights[i] = 1.0 / d
-    return weights @ np.asarray(qs)
+    def restart_step(self, line: _Timeline, t: float, h_try: float, rates0) -> float:
+        """The first step after a restart (s)."""
+        cfg = self.cfg
+        if line.fixed:
+            return cfg.step
+        gap = line.gap(t)
+        if rates0 is not None:
+            # The first step's error is estimated from the rates just after
+            # the jump, so it may start long: as long as the first step
+            # after the same state last time, or else as the step before; a
+            # rejection shortens it.
+            self.restart_key = self.version
+            h = min(self.restart_memory.get(self.restart_key, self.h_smooth), gap, cfg.max_step)
+            return max(h, cfg.min_step)
+        # The time scale after a corner is unknown: start small and let the
+        # error control grow the step.
+        return max(RESTART_FRACTION * min(h_try, gap, cfg.max_step), cfg.min_step)
 
 
 def _snap(h: float, step: float) -> float:
@@ -682,91 +652,113 @@ def _corner_flags(grid: np.ndarray, corners: np.ndarray) -> np.ndarray:
     return flags
 
 
+def _fine_arrays(rec: _Recorder) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Time (s), unknowns and rates on the fine timeline: each step's start, its inner points, its end."""
+    n = rec.count
+    m = len(INNER_POINTS) + 1
+    t = rec.t[:n]
+    h = np.diff(t)
+    inner_t = t[:-1, None] + h[:, None] * np.array(INNER_POINTS)[None, :]
+    fine_t = np.empty((n - 1) * m + 1)
+    fine_t[0] = t[0]
+    fine_t[1:].reshape(n - 1, m)[:, :-1] = inner_t
+    fine_t[m::m] = t[1:]
+
+    def interleave(main: np.ndarray, inner: np.ndarray) -> np.ndarray:
+        out = np.empty(((n - 1) * m + 1,) + main.shape[1:])
+        out[0] = main[0]
+        body = out[1:].reshape((n - 1, m) + main.shape[1:])
+        body[:, :-1] = inner[1:n]
+        body[:, -1] = main[1:n]
+        return out
+
+    return fine_t, interleave(rec.x[:n], rec.inner_x[:n]), interleave(rec.r[:n], rec.inner_r[:n])
+
+
 def _finish(circuit, system: System, refs, run: _Run, started, cfg: _Settings, status, message) -> Waveforms:
     rec = run.rec
     n = rec.count
-    time = rec.t[:n].copy()
+    m = len(INNER_POINTS) + 1
+    fine_t, fine_x, fine_r = _fine_arrays(rec) if n > 1 else (rec.t[:n], rec.x[:n], rec.r[:n])
     probe = Probe(
         system,
-        time,
-        x={int(idx): rec.x[:n, j] for j, idx in enumerate(run.need_x)},
-        rates={sid: rec.r[:n, j] for j, sid in enumerate(run.need_states)},
+        fine_t,
+        x={int(idx): fine_x[:, j] for j, idx in enumerate(run.need_x)},
+        rates={sid: fine_r[:, j] for j, sid in enumerate(run.need_states)},
         discrete=run.discrete,
     )
     # (+ 0.0 turns -0.0 into 0.0 so reports never show "-0")
-    signals = {ref.label: compute_signal(ref, circuit, probe) + 0.0 for ref in refs}
-    notes = [n for n in cfg.notes if not any(n in w for w in circuit.warnings)]
+    fine = {ref.label: np.asarray(compute_signal(ref, circuit, probe), dtype=float) + 0.0 for ref in refs}
+    time = fine_t[::m].copy()
+    signals = {label: values[::m].copy() for label, values in fine.items()}
+    end = getattr(run, "end", None)
+    final = None
+    if status == "ok" and end is not None:
+        final = CircuitState(end[0], end[1], tuple(system.names), run.discrete.snapshot())
+    waves = Waveforms(
+        final_state=final,
+        time=time,
+        signals=signals,
+        units={ref.label: unit_label(ref) for ref in refs},
+        statistics=_statistics(run, cfg, system, started, n),
+        warnings=list(circuit.warnings) + [n for n in cfg.notes if not any(n in w for w in circuit.warnings)],
+        status=status,
+        message=message,
+        fine_time=fine_t,
+        fine_signals=fine,
+    )
     if cfg.sample is not None and n > 1:
-        time, signals = _resample(time, signals, cfg.sample, run.method.order)
-    steps = np.diff(rec.t[:n])
+        grid = np.arange(time[0], time[-1] + cfg.sample * 1e-9, cfg.sample)
+        waves.time = grid
+        waves.signals = {label: waves.interpolate(label, grid) for label in signals}
+        waves.statistics["points"] = int(grid.size)
+    return waves
+
+
+def _statistics(run: _Run, cfg: _Settings, system: System, started: float, n: int) -> dict[str, Any]:
+    steps = np.diff(run.rec.t[:n])
     steps = steps[steps > 0]
+    work = getattr(getattr(run, "stepper", None), "stats_work", {})
     statistics = {
-        "points": int(time.size),
+        "points": int(n),
         "accepted_steps": int(run.stats["accepted"]),
         "rejected_steps": int(run.stats["rejected"]),
         "retried_steps": int(run.stats["retries"]),
         "events": int(run.stats["events"]),
-        "newton_iterations": int(run.stats["newton_iterations"]),
-        "factorizations": int(run.factorizer.factorizations),
-        "solves": int(run.factorizer.solves),
+        "newton_iterations": int(run.stats["newton_iterations"] + work.get("newton_iterations", 0)),
+        "factorizations": int(run.factorizer.factorizations + work.get("factorizations", 0)),
+        "solves": int(run.factorizer.solves + work.get("solves", 0)),
         "smallest_step_s": float(steps.min()) if steps.size else 0.0,
         "largest_step_s": float(steps.max()) if steps.size else 0.0,
-        "method": run.method.name,
+        "method": cfg.method.name,
         "step_control": "fixed" if cfg.step is not None else "error-controlled",
         "unknowns": system.n,
         "wall_time_s": _time.perf_counter() - started,
     }
     statistics["steps"] = statistics["accepted_steps"]
-    end = getattr(run, "end", None)
-    final = None
-    if status == "ok" and end is not None:
-        final = CircuitState(end[0], end[1], tuple(system.names), run.discrete.snapshot())
-    return Waveforms(
-        final_state=final,
-        time=time,
-        signals=signals,
-        units={ref.label: unit_label(ref) for ref in refs},
-        statistics=statistics,
-        warnings=list(circuit.warnings) + notes,
-        status=status,
-        message=message,
-    )
+    return statistics
 
 
-def _resample(time: np.ndarray, signals: dict[str, np.ndarray], sample: float, order: int):
-    """Signals on a uniform grid, interpolated with the method's order.
+def _snap(h: float, step: float) -> float:
+    """Make steps that differ from ``step`` only by rounding exactly equal (LU reuse)."""
+    return step if abs(h - step) <= 1e-9 * step else h
 
-    Linear interpolation for first-order methods; for second-order methods a
-    quadratic through the two neighbours and the nearest third point of the
-    same smooth segment (never across a repeated time, i.e. an event).
-    """
-    grid = np.arange(time[0], time[-1] + sample * 1e-9, sample)
-    out = {}
-    # Index of the interval [time[i], time[i+1]] holding each sample (right-continuous).
-    i = np.clip(np.searchsorted(time, grid, side="right") - 1, 0, time.size - 2)
-    t0, t1 = time[i], time[i + 1]
-    same = t1 <= t0  # a repeated time: take the later value
-    for label, y in signals.items():
-        y0, y1 = y[i], y[i + 1]
-        with np.errstate(invalid="ignore", divide="ignore"):
-            frac = np.where(same, 1.0, (grid - t0) / np.where(same, 1.0, t1 - t0))
-        lin = y0 + (y1 - y0) * frac
-        if order >= 2 and time.size >= 3:
-            j = np.where(i + 2 < time.size, i + 2, i - 1)
-            j = np.clip(j, 0, time.size - 1)
-            t2, y2 = time[j], y[j]
-            ok = (t2 != t0) & (t2 != t1) & ~same
-            # A third point across a repeated time belongs to another segment.
-            lo = np.minimum(np.minimum(i, i + 1), j)
-            hi = np.maximum(np.maximum(i, i + 1), j)
-            dup = np.zeros(time.size, dtype=bool)
-            dup[1:] = np.diff(time) <= 0
-            cum = np.cumsum(dup)
-            ok &= (cum[hi] - cum[lo]) == 0
-            with np.errstate(invalid="ignore", divide="ignore"):
-                quad = (y0 * (grid - t1) * (grid - t2) / ((t0 - t1) * (t0 - t2))
-                        + y1 * (grid - t0) * (grid - t2) / ((t1 - t0) * (t1 - t2))
-                        + y2 * (grid - t0) * (grid - t1) / ((t2 - t0) * (t2 - t1)))
-            lin = np.where(ok, quad, lin)
-        out[label] = lin
-    return grid, out
+
+def _ladder(h: float, until: float) -> float:
+    """Round a step down to the ladder 2**(k/LADDER) * until (few distinct matrices)."""
+    k = math.floor(LADDER * math.log2(h / until) + 1e-9)
+    return until * 2.0 ** (k / LADDER)
+
+
+def _contains(sorted_times: np.ndarray, t: float) -> bool:
+    i = np.searchsorted(sorted_times, t)
+    return bool(i < sorted_times.size and sorted_times[i] == t)
+
+
+def _corner_flags(grid: np.ndarray, corners: np.ndarray) -> np.ndarray:
+    """For each grid point, whether it is a corner (where the history is cut)."""
+    flags = np.zeros(grid.size, dtype=bool)
+    if corners.size:
+        idx = np.clip(np.searchsorted(grid, corners), 0, grid.size - 1)
+        flags[idx[grid[idx] == corners]] = True
+    return flags
