@@ -360,7 +360,7 @@ class _Run:
         if changed:
             # What the matrix depends on besides alpha: the discrete states,
             # so a state seen before (the same half of a PWM period) reuses
-            # its factorisation.
+            # its factorization.
             self.version = self.discrete.key()
             self.stats["events"] += 1
         return changed

@@ -264,7 +264,7 @@ class Stepper:
         """(accepted, next h) from the error norm of a step of length h and the estimate's order.
 
         The step grows only when it pays (each new step length costs a
-        factorisation): by at least GROWTH_THRESHOLD, at most MAX_GROWTH.
+        factorization): by at least GROWTH_THRESHOLD, at most MAX_GROWTH.
         """
         factor = SAFETY * max(error, 1e-10) ** (-1.0 / (order + 1))
         if error > 1.0:

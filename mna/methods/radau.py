@@ -17,7 +17,7 @@ complex one ``(mu_c/h) Jq + Jf`` (H&W §IV.8, eq. 8.15-8.17), where Jq and
 Jf are the Jacobians of q and f. Both are factored once per step length and
 switch state (and, for a nonlinear circuit, when the Jacobian is renewed):
 on a linear or piecewise-linear circuit one iteration solves the stages
-exactly, and a run at constant step does no factorisation at all.
+exactly, and a run at constant step does no factorization at all.
 
 The error estimate is the embedded formula of H&W §IV.8 (eq. 8.19-8.20),
 filtered through the real matrix so stiff components do not inflate it:
@@ -33,7 +33,6 @@ from __future__ import annotations
 
 import numpy as np
 import scipy.linalg as sla
-import scipy.sparse.linalg as spla
 
 from .base import CANDIDATE, NOT_CONVERGED, REJECTED, DenseOutput, Step, Stepper
 
@@ -112,6 +111,8 @@ class _Factors:
             if not (np.all(np.diag(self.real[0]) != 0) and np.all(np.diag(self.cplx[0]) != 0)):
                 raise SingularMatrix(singular_unknowns(system, system.matrix(data_f + data_q / h)))
         else:
+            import scipy.sparse.linalg as spla  # only the sparse path pays for its import
+
             try:
                 self.real = spla.splu(system.matrix(data_f + (MU_REAL / h) * data_q), permc_spec="COLAMD")
                 self.cplx = spla.splu(system.matrix(data_f + (MU_COMPLEX / h) * data_q.astype(complex)),
