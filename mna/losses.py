@@ -161,6 +161,15 @@ def _part_energy(time: np.ndarray, values: np.ndarray, how: str, start: float, s
     return float(v[-1] - v[0])
 
 
+def _recorded(waves: "Waveforms", label: str) -> tuple[np.ndarray, np.ndarray]:
+    """(time, values) of a signal on every recorded point: the step ends and the
+    points of the method's dense output inside each step when the run kept them
+    (the grid a cumulative energy such as ``eloss`` was integrated on)."""
+    if getattr(waves, "fine_time", None) is not None and label in (waves.fine_signals or {}):
+        return np.asarray(waves.fine_time, dtype=float), np.asarray(waves.fine_signals[label], dtype=float)
+    return np.asarray(waves.time, dtype=float), np.asarray(waves[label], dtype=float)
+
+
 def loss_report(circuit: "Circuit", waves: "Waveforms") -> LossReport:
     """The loss table of ``circuit`` over its ``losses`` window, from a transient run's waveforms."""
     request = circuit.loss_request
@@ -173,13 +182,12 @@ def loss_report(circuit: "Circuit", waves: "Waveforms") -> LossReport:
             if part not in element.loss_parts:
                 continue
             quantity, how = element.loss_parts[part]
-            values = np.asarray(waves[f"{quantity}({element.name})"], dtype=float)
-            energy = _part_energy(time, values, how, start, stop)
+            energy = _part_energy(*_recorded(waves, f"{quantity}({element.name})"), how, start, stop)
             report.rows.append(LossRow(element.name, element.keyword, part, energy, energy / (stop - start),
                                        drawn=how == "power"))
     if request.input is not None:
-        report.input_energy = -wm.integral(time, np.asarray(waves[f"p({request.input})"]), start=start, stop=stop)
-        report.output_energy = wm.integral(time, np.asarray(waves[f"p({request.output})"]), start=start, stop=stop)
+        report.input_energy = -wm.integral(*_recorded(waves, f"p({request.input})"), start=start, stop=stop)
+        report.output_energy = wm.integral(*_recorded(waves, f"p({request.output})"), start=start, stop=stop)
     return report
 
 
