@@ -167,6 +167,8 @@ class Step:
     error: float | None = None
     h_next: float | None = None
     memo: object = None
+    #: Names of the unknowns that had not settled when Newton gave up.
+    unsettled: tuple = ()
 
     @property
     def h(self) -> float:
@@ -190,6 +192,8 @@ class Stepper:
 
     name: ClassVar[str] = ""
     order: ClassVar[int] = 1
+    #: Order of the dense output (the polynomial inside a step).
+    dense_order: ClassVar[int] = 1
     summary: ClassVar[str] = ""
 
     def __init_subclass__(cls, **kwargs):

@@ -132,6 +132,7 @@ class Radau(Stepper):
 
     name = "radau"
     order = 5
+    dense_order = 3
     summary = "fifth order, L-stable, stiffly accurate; few long steps for smooth stretches"
 
     def __init__(self, problem, t, x, h, rates=None):
@@ -188,12 +189,12 @@ class Radau(Stepper):
         factors = self._factored(h)
         Z, Qz = self._stages(factors, h)
         if Z is None:
-            return Step(NOT_CONVERGED, self.t, t_new)
+            return Step(NOT_CONVERGED, self.t, t_new, unsettled=self._unsettled)
         x_new = self.x + Z[2]
         h_next = self.h
         err = None
         if not p.q_rows.size:
-            h_next = self.h  # nothing stores energy: no local error to grow the step by
+            h_next = np.inf  # nothing stores energy: only corners and max-step bound the step
         elif error_control:
             err = self._error(factors, Qz, h)
             ok, h_next = self.next_step(h, err, ORDER_OF_ESTIMATE)
@@ -228,6 +229,7 @@ class Radau(Stepper):
             self.stats_work["newton_iterations"] += 1
             dW = np.stack([d_real, d_cplx.real, d_cplx.imag])
             if not np.isfinite(dW).all():
+                self._unsettled = p.system.describe_unknowns(np.flatnonzero(~np.isfinite(dW).all(axis=0))[:4])
                 return None, None
             Wt = Wt + dW
             Z_new = T @ Wt
@@ -236,20 +238,23 @@ class Radau(Stepper):
                 return Z_new, np.stack([p.charges(X[i], times[i]) for i in range(3)]) - self.q
             limited = False
             if limiters:
-                X_new, X_old = self.x + Z_new, self.x + Z
+                X_full, X_old = self.x + Z_new, self.x + Z
+                X_new = X_full.copy()
                 for i in range(3):
                     for batch in limiters:
                         X_new[i] = batch.limit(X_new[i], X_old[i])
-                limited = not np.array_equal(X_new - self.x, Z_new)
+                limited = not np.array_equal(X_new, X_full)
                 if limited:
                     Z_new = X_new - self.x
                     Wt = TI @ Z_new
             scale = NEWTON_FRACTION * p.tolerance * np.abs(self.x + Z_new) + p.system.abstol
-            moved = np.max(np.abs(Z_new - Z) / scale)
+            ratio = np.max(np.abs(Z_new - Z) / scale, axis=0)
+            moved = np.max(ratio)
             Z = Z_new
             if moved <= 1.0 and not limited:
                 X = self.x + Z
                 return Z, np.stack([p.charges(X[i], times[i]) for i in range(3)]) - self.q
+        self._unsettled = p.system.describe_unknowns(np.argsort(-ratio)[:4])
         return None, None
 
     def _error(self, factors: _Factors, Qz: np.ndarray, h: float) -> float:
