@@ -204,3 +204,17 @@ def test_a_diode_takes_its_junction_temperature_in_celsius():
     c = mna.parse("current-source I1 gnd -> a 1 mA\ndiode D1 a -> gnd temperature=125 °C\n")
     vt = 1.380649e-23 * 398.15 / 1.602176634e-19
     assert c.dc()["v(a)"] == pytest.approx(vt * np.log(1e-3 / 1e-14 + 1), rel=1e-6)
+
+
+def test_a_foster_ladder_ending_on_an_unheld_node_is_warned_about():
+    # A Foster network's capacitors sit across its resistors, not to ground,
+    # so it passes a heat step through at once (Lutz et al. ch. 13): a case
+    # node held by nothing but a thermal resistance jumps. mna says so.
+    text = ("heat-source P1 j 1 W\nfoster Z1 j -> case stages(0.1 K/W: 1 ms)\n"
+            "thermal-resistance R1 case -> ambient 1 K/W\n")
+    c = mna.parse(text)
+    c.dc()
+    assert any("foster Z1 ends on thermal node 'case'" in w for w in c.warnings)
+    held = mna.parse(text + "thermal-capacitance C1 case -> ambient 10 J/K\n")
+    held.dc()
+    assert not any("foster" in w for w in held.warnings)

@@ -80,6 +80,11 @@ THERMAL_NODE = (Port(("node",), THERMAL),)
 THERMAL_PAIR = (Port(("a", "b"), THERMAL),)
 
 
+def _warn(circuit, message: str) -> None:
+    if message not in circuit.warnings:
+        circuit.warnings.append(message)
+
+
 def ambient_temperature(circuit) -> float:
     """The temperature of the ``ambient`` reference (K) of ``circuit``."""
     for element in circuit.elements.values():
@@ -271,6 +276,25 @@ class Foster(Ladder):
     arguments = (Arg("stages", kind="expr", resolve=resolve_stages,
                      doc="stages(R1: tau1, R2: tau2, ...): K/W and s, from Zth(t)"),)
     summary = "datasheet transient thermal impedance: Foster ladder of R_i, tau_i pairs"
+
+    @classmethod
+    def check_stamped(cls, elements, s):
+        """Warn about a ladder that ends on a node nothing holds: heat would pass through it at once."""
+        held = {AMBIENT}
+        for element in s.circuit.elements.values():
+            if isinstance(element, (ThermalCapacitance, Cauer)):
+                held.update((element.nodes["a"], element.nodes["b"]) if isinstance(element, ThermalCapacitance)
+                            else (element.nodes["a"],))
+            elif isinstance(element, TemperatureSource):
+                held.add(element.nodes["node"])
+        for ladder in elements:
+            end = ladder.nodes["b"]
+            if end not in held:
+                _warn(s.circuit,
+                    f"foster {ladder.name} ends on thermal node {end!r}, which no heat capacity, Cauer ladder "
+                    "or temperature source holds: a Foster ladder's capacitances are not to ground, so a step "
+                    f"of heat passes through it at once and {end!r} jumps; put the case or heatsink's heat "
+                    "capacity (thermal-capacitance to ambient) on that node")
 
     def stamp(self, s):
         r, tau = self.r, self.x
