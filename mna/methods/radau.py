@@ -32,9 +32,9 @@ stages: a cubic, accurate to the third order everywhere in the step.
 from __future__ import annotations
 
 import numpy as np
-import scipy.linalg as sla
+from scipy.linalg.lapack import dgetrf, dgetrs, zgetrf, zgetrs
 
-from .base import CANDIDATE, NOT_CONVERGED, REJECTED, DenseOutput, Step, Stepper
+from .base import CANDIDATE, NOT_CONVERGED, REJECTED, DenseOutput, LinearDense, Step, Stepper
 
 _S6 = 6.0 ** 0.5
 #: Nodes and coefficients of Radau IIA, s = 3 (H&W II, Table 5.6).
@@ -67,6 +67,10 @@ NEWTON_MAX_ITERATIONS = 8
 #: tolerance= (relative) plus the Newton floor of its unknown.
 NEWTON_FRACTION = 0.01
 ORDER_OF_ESTIMATE = 3
+#: Fresh Jacobians a step may take when the simplified iteration stalls.
+JACOBIAN_RENEWALS = 3
+#: A stage update this many times the largest value present is divergence.
+DIVERGED = 1e4
 
 
 class RadauDense(DenseOutput):
@@ -94,21 +98,23 @@ class RadauDense(DenseOutput):
 
 
 class _Factors:
-    """The real and the complex stage matrices of one step length, factored."""
+    """The real and the complex stage matrices of one step length, factored.
+
+    Small systems (the system's dense form) call LAPACK's getrf/getrs
+    directly: a 5 x 5 factorization costs about a microsecond, where the
+    checking wrappers cost a hundred times more.
+    """
 
     def __init__(self, system, data_f: np.ndarray, data_q: np.ndarray, h: float):
         from ..solver import SingularMatrix, singular_unknowns
 
         self.dense = system.dense
-        self.Jq = system.dense_array(data_q) if self.dense else system.matrix(data_q)
+        self.Jq = system.dense_array(data_q) if self.dense else system.matrix(data_q).tocsr()
         if self.dense:
             Jf = system.dense_array(data_f)
-            try:
-                self.real = sla.lu_factor(MU_REAL / h * self.Jq + Jf, check_finite=True)
-                self.cplx = sla.lu_factor(MU_COMPLEX / h * self.Jq + Jf, check_finite=True)
-            except (ValueError, sla.LinAlgError):
-                raise SingularMatrix(("(the stage matrix is not finite)",)) from None
-            if not (np.all(np.diag(self.real[0]) != 0) and np.all(np.diag(self.cplx[0]) != 0)):
+            self.real = dgetrf(MU_REAL / h * self.Jq + Jf)
+            self.cplx = zgetrf(MU_COMPLEX / h * self.Jq + Jf)
+            if self.real[2] != 0 or self.cplx[2] != 0:
                 raise SingularMatrix(singular_unknowns(system, system.matrix(data_f + data_q / h)))
         else:
             import scipy.sparse.linalg as spla  # only the sparse path pays for its import
@@ -121,10 +127,10 @@ class _Factors:
                 raise SingularMatrix(singular_unknowns(system, system.matrix(data_f + data_q / h))) from None
 
     def solve_real(self, rhs):
-        return sla.lu_solve(self.real, rhs, check_finite=False) if self.dense else self.real.solve(rhs)
+        return dgetrs(self.real[0], self.real[1], rhs)[0] if self.dense else self.real.solve(rhs)
 
     def solve_complex(self, rhs):
-        return sla.lu_solve(self.cplx, rhs, check_finite=False) if self.dense else self.cplx.solve(rhs)
+        return zgetrs(self.cplx[0], self.cplx[1], rhs)[0] if self.dense else self.cplx.solve(rhs)
 
 
 class Radau(Stepper):
@@ -186,10 +192,9 @@ class Radau(Stepper):
     # -- one step -----------------------------------------------------------------------
     def _attempt(self, t_new: float, h: float, error_control: bool) -> Step:
         p = self.problem
-        factors = self._factored(h)
-        Z, Qz = self._stages(factors, h)
+        Z, Qz, factors = self._stages(self._factored(h), h)
         if Z is None:
-            return Step(NOT_CONVERGED, self.t, t_new, unsettled=self._unsettled)
+            return self._euler_step(t_new, h, error_control)
         x_new = self.x + Z[2]
         h_next = self.h
         err = None
@@ -207,11 +212,62 @@ class Radau(Stepper):
         return Step(CANDIDATE, self.t, t_new, length=h, x=x_new, xdot=dense.derivative_at_end(), dense=dense,
                     error=err, h_next=h_next, memo=(q_new, rates_new))
 
+    def _euler_step(self, t_new: float, h: float, error_control: bool) -> Step:
+        """A backward-Euler step, when the stage iteration does not settle.
+
+        The stage iteration keeps the Jacobian of the step's start; a junction
+        that switches hard inside the step (a freewheel diode taking over
+        after its switch opens) can stall it at any step length. One
+        backward-Euler step (a full Newton iteration with junction limiting)
+        carries the run over it, with its own error estimate
+        ``(q1 - q0) - h qdot0`` (first order); the next step is Radau again.
+        """
+        p = self.problem
+        x_new = p.solve(self.x, t_new, 1.0 / h, -self.q / h)
+        if x_new is None:
+            return Step(NOT_CONVERGED, self.t, t_new, unsettled=self._unsettled)
+        q_new = p.charges(x_new, t_new)
+        h_next = self.h
+        err = None
+        if not p.q_rows.size:
+            h_next = np.inf
+        elif error_control:
+            rows = p.q_rows
+            err = p.error_norm((q_new - self.q - h * self.rates_now)[rows], q_new[rows])
+            ok, h_next = self.next_step(h, err, 1)
+            if not ok:
+                return Step(REJECTED, self.t, t_new, error=err, h_next=h_next)
+        dense = LinearDense(self.t, self.x, t_new, x_new)
+        return Step(CANDIDATE, self.t, t_new, length=h, x=x_new, xdot=(x_new - self.x) / h, dense=dense,
+                    error=err, h_next=h_next, memo=(q_new, (q_new - self.q) / h))
+
     def _stages(self, factors: _Factors, h: float):
-        """Stage increments Z (3, n) and charge increments (3, n); (None, None) if Newton fails."""
+        """Stage increments Z (3, n), charge increments (3, n) and the factors last used.
+
+        Simplified Newton with the Jacobian at the step's start; when it
+        does not settle within NEWTON_MAX_ITERATIONS (a diode turning on
+        inside the step), the Jacobian is renewed at the last stage's
+        values, up to JACOBIAN_RENEWALS times. (None, None, factors) if
+        Newton fails.
+        """
+        for renewal in range(JACOBIAN_RENEWALS + 1):
+            Z, Qz = self._iterate(factors, h, getattr(self, "_Z_last", None) if renewal else None)
+            if Z is not None or self.problem.pwl or renewal == JACOBIAN_RENEWALS or self._Z_last is None:
+                return Z, Qz, factors
+            x3, t3 = self.x + self._Z_last[2], self.t + h
+            data_f, data_q = self.problem.jacobians(x3, t3)
+            factors = _Factors(self.problem.system, data_f, data_q, h)
+            self.stats_work["factorizations"] += 2
+        return None, None, factors
+
+    def _iterate(self, factors: _Factors, h: float, Z0):
+        """Simplified Newton on the stage equations from Z0 (or a prediction)."""
         p = self.problem
         times = self.t + NODES * h
-        if self.dense_prev is not None and not p.pwl:
+        self._Z_last = None
+        if Z0 is not None:
+            Z = Z0
+        elif self.dense_prev is not None and not p.pwl:
             Z = self.dense_prev(times) - self.x
         else:
             Z = np.zeros((3, self.x.size))
@@ -230,12 +286,20 @@ class Radau(Stepper):
             dW = np.stack([d_real, d_cplx.real, d_cplx.imag])
             if not np.isfinite(dW).all():
                 self._unsettled = p.system.describe_unknowns(np.flatnonzero(~np.isfinite(dW).all(axis=0))[:4])
+                self._Z_last = None
                 return None, None
             Wt = Wt + dW
             Z_new = T @ Wt
+            if np.max(np.abs(Z_new)) > DIVERGED * (np.max(np.abs(self.x)) + 1.0):
+                # an update ten thousand times the largest value present: the
+                # iteration has left for an exponential's far side
+                self._unsettled = p.system.describe_unknowns(np.argsort(-np.max(np.abs(Z_new), axis=0))[:4])
+                self._Z_last = None
+                return None, None
             if p.pwl:  # affine stage equations: one iteration is exact
                 X = self.x + Z_new
                 return Z_new, np.stack([p.charges(X[i], times[i]) for i in range(3)]) - self.q
+            scale = NEWTON_FRACTION * p.tolerance * np.abs(self.x + Z_new) + p.system.abstol
             limited = False
             if limiters:
                 X_full, X_old = self.x + Z_new, self.x + Z
@@ -243,14 +307,14 @@ class Radau(Stepper):
                 for i in range(3):
                     for batch in limiters:
                         X_new[i] = batch.limit(X_new[i], X_old[i])
-                limited = not np.array_equal(X_new, X_full)
+                # (a limiter may round a converged update: only a real cut counts)
+                limited = bool(np.any(np.abs(X_new - X_full) > scale))
                 if limited:
                     Z_new = X_new - self.x
                     Wt = TI @ Z_new
-            scale = NEWTON_FRACTION * p.tolerance * np.abs(self.x + Z_new) + p.system.abstol
             ratio = np.max(np.abs(Z_new - Z) / scale, axis=0)
             moved = np.max(ratio)
-            Z = Z_new
+            Z = self._Z_last = Z_new
             if moved <= 1.0 and not limited:
                 X = self.x + Z
                 return Z, np.stack([p.charges(X[i], times[i]) for i in range(3)]) - self.q
