@@ -13,12 +13,14 @@ refactored only when its values changed.
 
 from __future__ import annotations
 
+import math
 from collections import OrderedDict
 from dataclasses import dataclass
 
 import numpy as np
 from scipy.linalg.lapack import dgetrf, dgetrs
 
+from .assembly import Assembly
 from .errors import SimulationError
 from .system import System
 
@@ -76,6 +78,9 @@ class Factorizer:
         self.dense = system.dense
         self._last_dense: np.ndarray | None = None
         self._last_dense_lu = None
+        self._assembly: Assembly | None = None
+        self._kept: tuple | None = None  # (key, LU) of Newton's last Jacobian
+        self._last_jacobian: tuple | None = None  # (matrix, LU), for compare=True
 
     def factor(self, data: np.ndarray, key=None):
         """LU of the matrix with CSC ``data``. ``key`` identifies data for reuse."""
@@ -154,8 +159,49 @@ class Factorizer:
         except RuntimeError:
             raise SingularMatrix(singular_unknowns(self.system, A)) from None
 
+    @property
+    def assembly(self) -> Assembly:
+        """How Newton's residuals and Jacobians are assembled for this run (made on first use)."""
+        if self._assembly is None:
+            self._assembly = Assembly(self.system)
+        return self._assembly
+
+    def factor_matrix(self, matrix: np.ndarray, compare: bool = False):
+        """LU of a new Jacobian: a dense column-major array, or CSC data (large systems).
+
+        ``compare``: reuse the last such LU if the matrix has the same values
+        (the caller must not change ``matrix`` afterwards).
+        """
+        if compare:
+            last = self._last_jacobian
+            if last is not None and last[0].shape == matrix.shape and np.array_equal(last[0], matrix):
+                return last[1]
+        lu = None
+        original = matrix
+        if self.dense:
+            lu = self._dense_lu(matrix)
+            if lu is None:
+                matrix = self.system.csc_data(matrix)
+        if lu is None:
+            lu = self._sparse_lu(matrix)
+        self.factorizations += 1
+        self._last_jacobian = (original, lu) if compare else None
+        return lu
+
+    def reusable(self, key):
+        """The LU Newton kept under ``key`` (:meth:`keep`), or None."""
+        if key is not None and self._kept is not None and self._kept[0] == key:
+            return self._kept[1]
+        return None
+
+    def keep(self, key, lu) -> None:
+        """Keep Newton's last LU for the next solve with the same ``key`` (None: keep nothing)."""
+        self._kept = (key, lu) if key is not None else None
+
     def forget(self) -> None:
         """Drop cached factorizations (after an event changed the matrix)."""
+        self._kept = None
+        self._last_jacobian = None
         self._cache.clear()
         self._last_data = None
         self._last_lu = None
@@ -207,6 +253,21 @@ MAX_HALVINGS = 8
 #: steps so short, such as the instant after an event, that round-off in the
 #: solve exceeds the step tolerance).
 STALL_AFTER = 3
+#: Newton keeps a Jacobian while successive updates shrink at least this
+#: fast (the ratio of their norms); a slower rate takes a fresh Jacobian.
+#: The same bound as in Hairer & Wanner, *Solving Ordinary Differential
+#: Equations II*, section IV.8 (from memory), for their simplified Newton.
+THETA_REUSE = 0.3
+#: Updates below this fraction of the tolerance are round-off: two in a row
+#: with an older Jacobian count as converged whatever their ratio.
+ROUNDOFF_UPDATE = 1e-3
+#: A Jacobian whose last rate was above this is not kept for the next solve.
+THETA_KEEP = 0.05
+#: With an older Jacobian the iteration converges linearly, so a solve stops
+#: only when the predicted remaining error ``theta/(1 - theta)*|dx|`` is this
+#: fraction of the tolerance: as far inside it as the quadratic remainder of
+#: a last update with a fresh Jacobian usually is.
+CHORD_REMAINDER = 0.01
 RESIDUAL_RELTOL = 1e-12
 RESIDUAL_FLOOR = 1e-30
 
@@ -235,6 +296,7 @@ def newton(
     damping: bool = False,
     hold: tuple[np.ndarray, np.ndarray] | None = None,
     states=None,
+    reuse_jacobian: bool = True,
 ) -> NewtonResult:
     """Solve ``alpha*q(x) + history + f(x, t) = 0`` from the guess ``x0``.
 
@@ -255,69 +317,72 @@ def newton(
        the step is halved, up to :data:`MAX_HALVINGS` times; a halved step
        never counts as converged. The trial point's evaluation is reused
        for the next iteration, so an accepted full step costs nothing extra.
-    3. Convergence: every unknown moved less than ``reltol*|x| + abstol``
-       (abstol per dimension: 1 uV, 1 pA, see :data:`mna.system.ABSTOL`);
-       or, after :data:`STALL_AFTER` iterations, every equation balances to
-       :data:`RESIDUAL_RELTOL` of the magnitudes of its terms. The second
-       test matters only when round-off in the solve is larger than the
-       step tolerance: very short steps (the instant after an event), where
-       ``alpha*L`` reaches 1e12 and more.
+    3. Convergence, in the norm ``max |dx| / (reltol*|x| + abstol)``
+       (abstol per dimension: 1 uV, 1 pA, see :data:`mna.system.ABSTOL`):
+       after an update with a Jacobian evaluated at the iterate it started
+       from, the update is at most 1; after an update with an older
+       Jacobian, the iteration contracts (rate ``theta`` of successive
+       update norms at most :data:`THETA_REUSE`) and the predicted remaining
+       error ``theta/(1 - theta)*|dx|`` is at most 1 (a first update with an
+       older Jacobian never counts). Or, after :data:`STALL_AFTER`
+       iterations, every equation balances to :data:`RESIDUAL_RELTOL` of
+       the magnitudes of its terms: for very short steps (the instant after
+       an event), where ``alpha*L`` reaches 1e12 and more and round-off in
+       the solve exceeds the step tolerance.
 
-    The matrix is refactored only when its values changed: a batch whose
-    Jacobian is constant between events (a switch) reuses one LU.
+    Jacobian reuse (time steps and jump solves: ``alpha != 0``, undamped):
+    the Jacobian and its LU are kept while the iteration contracts, within
+    one solve and from one solve to the next with the same ``alpha`` and
+    discrete states. A limited step or a rate above :data:`THETA_REUSE`
+    takes a fresh Jacobian at the new iterate; a rate of 1 or more, or a
+    non-finite update, discards the update and takes a fresh Jacobian at
+    the last trusted iterate (the guess ``x0`` when the Jacobian came from
+    an earlier solve). A solve that fails with reuse is tried again from
+    ``x0`` without (``reuse_jacobian=False``): reuse never loses a solve.
+    The DC operating point (``alpha = 0``) and damped
+    Newton evaluate the Jacobian at every iterate (quadratic convergence
+    leaves the operating point far inside the tolerance) and refactor
+    only when its values changed. Linear and piecewise-linear parts are
+    summed once per state and step (:class:`mna.assembly.Assembly`).
     """
     s = system.add_sources(np.zeros(system.n), t)
     if source_scale != 1.0:
         s *= source_scale
-    if system.is_piecewise_linear:
-        f0, q0, jf, jq = system.affine_parts(t, states)
-        data = system.matrix_data(alpha, jf, jq, extra_diag)
-        rhs = s - history if history is not None else s
-        if f0 is not None:
-            rhs = rhs - f0 - (alpha * q0 if alpha else 0.0)
-        if hold is not None:
-            system.hold_matrix(data, hold[0])
-            rhs[hold[0]] = hold[1]
-        lu = factorizer.factor(data)
-        factorizer.solves += 1
-        return NewtonResult(lu.solve(rhs), 1, True)
+    assembly = factorizer.assembly
+    if assembly.piecewise_linear:
+        return _affine_solve(system, factorizer, t, alpha, history, s, extra_diag, hold, states)
 
-    # The linear part alpha*C + G (+ diag) is summed once per solve: its CSC
-    # data seeds every Jacobian, and as an operator it gives the linear
-    # terms of the residual in one product.
-    linear_data = system.G_data + alpha * system.C_data if alpha else system.G_data.copy()
-    if extra_diag is not None:
-        linear_data[system.diag_pos] += extra_diag
-    dense = system.dense
-    linear = system.operator(linear_data)
+    lin = assembly.linear(states, t, alpha, extra_diag)
     constant = -s if history is None else history - s
-    limiters = system.limiting_batches
-    charges = bool(alpha) and system.has_nonlinear_charges
+    if lin.offset is not None:
+        constant += lin.offset
+    reuse = reuse_jacobian and bool(alpha) and not damping
+    reuse_key = (lin.key, hold is not None) if reuse else None
 
-    def linearise(x: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-        """Residual, matrix (dense array or CSC data), and the nonlinear f and q at ``x``."""
-        f_nl, q_nl, jf, jq = system.evaluate_batches(x, t, states)
-        residual = linear @ x
-        residual += f_nl
+    def residual_at(x: np.ndarray):
+        """Residual and the batches' Jacobian values at ``x``."""
+        residual, values = assembly.residual(lin, x, t, states, alpha)
         residual += constant
-        if charges:
-            residual += alpha * q_nl
-        if dense:
-            matrix = system.dense_jacobian(linear, alpha, jf, jq)
-            if hold is not None:
+        if hold is not None:
+            residual[hold[0]] = x[hold[0]] - hold[1]
+        return residual, values
+
+    def fresh_lu(values):
+        """LU of the Jacobian at the iterate whose batch values are ``values``, and its
+        staleness reference."""
+        matrix, reference = assembly.jacobian(lin, values, alpha)
+        if hold is not None:
+            if assembly.dense:
                 rows = hold[0]
                 matrix[rows, :] = 0.0
                 matrix[rows, rows] = 1.0
-        else:
-            matrix = system.matrix_data(alpha, jf, jq, linear=linear_data)
-            if hold is not None:
+            else:
                 system.hold_matrix(matrix, hold[0])
-        if hold is not None:
-            residual[hold[0]] = x[hold[0]] - hold[1]
-        return residual, matrix, f_nl, q_nl
+        return factorizer.factor_matrix(matrix, compare=not reuse), reference
 
-    def balanced(x: np.ndarray, residual: np.ndarray, f_nl: np.ndarray, q_nl: np.ndarray) -> bool:
+    def balanced(x: np.ndarray, residual: np.ndarray) -> bool:
         """Every equation holds to RESIDUAL_RELTOL of the terms that make it up."""
+        f_nl, q_nl, _, _ = system.evaluate_batches(x, t, states)
         abs_g, abs_c = _abs_matrices(system)
         ax = np.abs(x)
         terms = abs_g @ ax + np.abs(f_nl) + np.abs(s)
@@ -331,43 +396,114 @@ def newton(
             terms[hold[0]] = np.abs(x[hold[0]]) + np.abs(hold[1])
         return bool(np.all(np.abs(residual) <= RESIDUAL_RELTOL * terms + RESIDUAL_FLOOR))
 
+    def _without_reuse(failed: NewtonResult) -> NewtonResult:
+        """A solve that failed with Jacobian reuse is tried again from ``x0`` with a fresh
+        Jacobian at every iterate, so reuse never loses a solve Newton proper finds."""
+        if not reuse:
+            return failed
+        factorizer.keep(None, None)
+        again = newton(system, factorizer, x0, t, alpha, history, max_iterations=max_iterations,
+                       reltol=reltol, extra_diag=extra_diag, source_scale=source_scale, hold=hold,
+                       states=states, reuse_jacobian=False)
+        again.iterations += failed.iterations
+        return again
+
+    limiters = system.limiting_batches
+    floor = system.abstol / reltol  # (the norm is computed in units of reltol)
     x = np.array(x0, dtype=float)
-    residual, data, f_nl, q_nl = linearise(x)
-    step = scale = np.ones(system.n)
+    ax = np.abs(x)
+    residual, values = residual_at(x)
+    kept = factorizer.reusable(reuse_key)
+    if kept is not None and assembly.close(values, alpha, kept[1]):
+        (lu, reference), current = kept, False
+    else:
+        (lu, reference), current = fresh_lu(values), True
+    origin = (x, residual, values) if not current else None  # where a kept Jacobian started
+    previous = None  # norm of the last update made with this Jacobian
     limited = damped = False
+    step = scale = np.ones(system.n)
     for iteration in range(1, max_iterations + 1):
-        if iteration > STALL_AFTER and not limited and not damped and balanced(x, residual, f_nl, q_nl):
+        if iteration > STALL_AFTER and not limited and not damped and balanced(x, residual):
             # The update is stuck at round-off while every equation holds to
             # 1e-12 of its terms: nothing more can be gained in floating point.
+            factorizer.keep(reuse_key, (lu, reference))
             return NewtonResult(x, iteration - 1, True)
-        lu = factorizer.factor_dense(data) if dense else factorizer.factor(data)
-        dx = lu.solve(-residual)
+        dx = lu.solve(residual)  # (the update is -dx)
         factorizer.solves += 1
-        if not np.isfinite(dx).all():
-            return NewtonResult(x, iteration, False, ())
-        full = x + dx
+        full = x - dx
         x_new = full
         for batch in limiters:
             x_new = batch.limit(x_new, x)
         limited = x_new is not full and not np.array_equal(x_new, full)
         damped = False
         if damping:
-            trial = linearise(x_new)
-            norm = np.linalg.norm(residual)
+            trial = residual_at(x_new)
+            norm2 = np.linalg.norm(residual)
             halvings = 0
-            while np.linalg.norm(trial[0]) > norm and halvings < MAX_HALVINGS:
+            while np.linalg.norm(trial[0]) > norm2 and halvings < MAX_HALVINGS:
                 x_new = x + 0.5 * (x_new - x)
-                trial = linearise(x_new)
+                trial = residual_at(x_new)
                 halvings += 1
             damped = halvings > 0
-        step = np.abs(x_new - x)
-        scale = reltol * np.maximum(np.abs(x_new), np.abs(x)) + system.abstol
-        x = x_new
-        if not limited and not damped and (step <= scale).all():
+        ax_new = np.abs(x_new)
+        step = np.abs(x_new - x) if (limited or damped) else np.abs(dx)
+        scale = np.maximum(ax_new, ax)
+        scale += floor
+        norm = float(np.max(step / scale)) / reltol
+        theta = None if (current or previous is None) else norm / max(previous, 1e-300)
+        if theta is not None and max(norm, previous) <= ROUNDOFF_UPDATE:
+            theta = 0.0  # both updates at round-off: the rate means nothing
+        if not norm < math.inf or (theta is not None and theta >= 1.0):
+            # An overflowing update, or an older Jacobian that no longer
+            # contracts: drop the update; a fresh Jacobian at the last trusted
+            # iterate (the guess, if the Jacobian came from an earlier solve).
+            if current:
+                return _without_reuse(NewtonResult(x, iteration, False, ()))
+            if origin is not None:
+                x, residual, values = origin
+                ax = np.abs(x)
+            (lu, reference), current, origin, previous = fresh_lu(values), True, None, None
+            continue
+        if current:
+            converged = norm <= 1.0
+        else:
+            # (a first update from a kept Jacobian, whose entries were checked
+            # at the guess: its rate taken at the bound THETA_REUSE)
+            rate = THETA_REUSE if theta is None else theta
+            converged = (norm <= 1.0 and rate <= THETA_REUSE
+                         and rate * norm <= (1.0 - rate) * CHORD_REMAINDER)
+        previous = norm
+        x, ax = x_new, ax_new
+        if converged and not limited and not damped:
+            # The next solve starts from this Jacobian only if it still
+            # converges fast: a slower one costs an iteration per solve.
+            fast = theta is None or theta <= THETA_KEEP
+            factorizer.keep(reuse_key if fast else None, (lu, reference))
             return NewtonResult(x, iteration, True)
-        residual, data, f_nl, q_nl = trial if damping else linearise(x)
-    worst = np.argsort(-(step / scale))[:4]
-    return NewtonResult(x, max_iterations, False, system.describe_unknowns(worst))
+        residual, values = trial if damping else residual_at(x)
+        if (not reuse or limited or damped or (theta is not None and theta > THETA_REUSE)
+                or not assembly.close(values, alpha, reference)):
+            (lu, reference), current, origin, previous = fresh_lu(values), True, None, None
+        else:
+            current = False
+    worst = np.argsort(-(step / scale))[:4]  # (scale in units of reltol: the order is the same)
+    return _without_reuse(NewtonResult(x, max_iterations, False, system.describe_unknowns(worst)))
+
+
+def _affine_solve(system: System, factorizer: Factorizer, t: float, alpha: float,
+                  history: np.ndarray | None, s: np.ndarray, extra_diag, hold, states) -> NewtonResult:
+    """One solve of a system whose batches are all piecewise linear (exact in one iteration)."""
+    f0, q0, jf, jq = system.affine_parts(t, states)
+    data = system.matrix_data(alpha, jf, jq, extra_diag)
+    rhs = s - history if history is not None else s
+    if f0 is not None:
+        rhs = rhs - f0 - (alpha * q0 if alpha else 0.0)
+    if hold is not None:
+        system.hold_matrix(data, hold[0])
+        rhs[hold[0]] = hold[1]
+    lu = factorizer.factor(data)
+    factorizer.solves += 1
+    return NewtonResult(lu.solve(rhs), 1, True)
 
 
 def raise_singular(exc: SingularMatrix, *, time: float | None, step: float | None, partial=None, what: str):

@@ -314,9 +314,15 @@ class NonlinearBatch:
         fresh state object from it (a run that continues from another).
     12. ``state_log(state, element)`` returns ``(times, values)``: the log of
         an element's discrete state over the run (for its outputs).
+    13. ``jacobian_floor`` (in the units of the Jacobian entries): Newton
+        keeps a Jacobian while each entry stays within 30 % of its value
+        plus this floor (:mod:`mna.assembly`). A junction sets the linear
+        leak conductance always in parallel with it; the default 0 asks
+        for every entry within 30 % of itself.
     """
 
     piecewise_linear: ClassVar[bool] = False
+    jacobian_floor: ClassVar[float] = 0.0
     empty = np.empty(0, dtype=np.int64)
 
     def __init__(self, elements: Sequence[Element], stamper: "Stamper"):

@@ -13,6 +13,10 @@ from __future__ import annotations
 
 import numpy as np
 
+#: Largest instances x unknowns for which a branch pattern keeps its maps as
+#: small dense matrices.
+SMALL_MAP = 4096
+
 
 def node_values(x: np.ndarray, index: np.ndarray) -> np.ndarray:
     """``x[index]`` with 0 where ``index`` is -1 (a reference node)."""
@@ -49,7 +53,7 @@ class BranchPattern:
     engine expects for ``f_rows`` and ``(jf_rows, jf_cols)``.
     """
 
-    def __init__(self, a: np.ndarray, b: np.ndarray):
+    def __init__(self, a: np.ndarray, b: np.ndarray, n: int | None = None):
         self.a = np.asarray(a, dtype=np.int64)
         self.b = np.asarray(b, dtype=np.int64)
         self._va, self._vb = NodeSelector(self.a), NodeSelector(self.b)
@@ -69,15 +73,33 @@ class BranchPattern:
         self.jf_cols = jc[keep]
         self._j_pick = np.concatenate([inst, inst, inst, inst])[keep]
         self._j_sign = np.concatenate([np.ones(m), -np.ones(m), -np.ones(m), np.ones(m)])[keep]
+        # Few instances in a small system (``n`` unknowns given): each of the
+        # three maps is one small matrix product instead of two or three
+        # indexing calls (for arrays this small, numpy's cost is per call).
+        self._across = self._f_map = self._j_map = None
+        if n is not None and m * max(n, self.jf_rows.size) <= SMALL_MAP:
+            self._across = np.zeros((m, n))
+            self._across[inst[self.a >= 0], self.a[self.a >= 0]] += 1.0
+            self._across[inst[self.b >= 0], self.b[self.b >= 0]] -= 1.0
+            self._f_map = np.zeros((self.f_rows.size, m))
+            self._f_map[np.arange(self.f_rows.size), self._f_pick] = self._f_sign
+            self._j_map = np.zeros((self.jf_rows.size, m))
+            self._j_map[np.arange(self.jf_rows.size), self._j_pick] = self._j_sign
 
     def across(self, x: np.ndarray) -> np.ndarray:
         """``v_a - v_b`` per instance."""
+        if self._across is not None:
+            return self._across @ x
         return self._va(x) - self._vb(x)
 
     def f_values(self, current: np.ndarray) -> np.ndarray:
         """Residual values: ``+i`` at row a, ``-i`` at row b."""
+        if self._f_map is not None:
+            return self._f_map @ current
         return current[self._f_pick] * self._f_sign
 
     def jf_values(self, conductance: np.ndarray) -> np.ndarray:
         """Jacobian values of the 2x2 block ``[[g, -g], [-g, g]]``."""
+        if self._j_map is not None:
+            return self._j_map @ conductance
         return conductance[self._j_pick] * self._j_sign
