@@ -9,13 +9,15 @@ script runs it with the companion methods (which solve every step with
 - microseconds per Newton iteration (time inside ``newton`` / iterations),
 - Newton iterations and LU factorizations per accepted step,
 
-each the best of several repeats (the machine may be shared: the best run
-is the one least disturbed). ``--before DIR`` runs the same measurement on
+each the best of several repeats, in CPU time of this process
+(``time.process_time``: on a shared, loaded machine wall-clock time counts
+the waits for a core too; CPU time does not, though a loaded machine's
+caches still make it slower than on an idle one). ``--before DIR`` runs the same measurement on
 another checkout of the project (for instance ``git worktree add /tmp/old
-main``) in a second process and prints both, with the ratio. Asserts
-nothing.
+main``), the two checkouts in turns in processes of their own, and prints
+both with the ratio. Asserts nothing.
 
-    python benchmarks/bench_newton.py [--before DIR] [--periods N] [--repeats N]
+    python benchmarks/bench_newton.py [--before DIR] [--periods N] [--repeats N] [--rounds N]
 """
 
 from __future__ import annotations
@@ -48,9 +50,9 @@ def _patch_newton(counter: dict) -> None:
     original = mna.solver.newton
 
     def timed(*args, **kwargs):
-        start = time.perf_counter()
+        start = time.process_time()
         result = original(*args, **kwargs)
-        counter["seconds"] += time.perf_counter() - start
+        counter["seconds"] += time.process_time() - start
         counter["iterations"] += result.iterations
         counter["calls"] += 1
         return result
@@ -119,7 +121,7 @@ def measure_step(circuit, repeats: int) -> dict:
         result = call()
         assert result.converged
         number = 200
-        best = min(timeit.repeat(call, number=number, repeat=repeats)) / number
+        best = min(timeit.repeat(call, number=number, repeat=repeats, timer=time.process_time)) / number
         out[case] = {"us_per_iteration": best / result.iterations * 1e6, "iterations": result.iterations,
                      "factorizations": fz.factorizations - before}
     return out
@@ -147,21 +149,43 @@ def _measure_elsewhere(directory: str, periods: int, repeats: int) -> dict:
     return json.loads(done.stdout)
 
 
+def _best(old: dict | None, new: dict) -> dict:
+    """The faster of two measurements, row by row."""
+    if old is None:
+        return new
+    out = {"step": {}, "run": {}}
+    for part in ("step", "run"):
+        for key, row in new[part].items():
+            other = old[part][key]
+            out[part][key] = row if row["us_per_iteration"] < other["us_per_iteration"] else other
+    return out
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--before", help="another checkout of the project to compare with")
     parser.add_argument("--periods", type=int, default=40, help="PWM periods of 10 us (default 40)")
     parser.add_argument("--repeats", type=int, default=7, help="repeats; the best is kept (default 7)")
+    parser.add_argument("--rounds", type=int, default=3,
+                        help="with --before: turns of the two checkouts (default 3)")
     parser.add_argument("--json", action="store_true", help=argparse.SUPPRESS)
     args = parser.parse_args()
     if args.json:
         print(json.dumps(measure(args.periods, args.repeats)))
         return
-    sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
-    after = measure(args.periods, args.repeats)
-    before = _measure_elsewhere(args.before, args.periods, args.repeats) if args.before else None
-    print(f"PWM coil with exponential freewheel diode, 5 unknowns; best of {args.repeats} "
-          "(times depend on the machine's load: compare the two columns of one run)")
+    here = str(Path(__file__).resolve().parent.parent)
+    if args.before:
+        # Both checkouts in turns, each in its own process, so a change in the
+        # machine's load between them cannot favour either; the best of all.
+        after = before = None
+        for _ in range(args.rounds):
+            after = _best(after, _measure_elsewhere(here, args.periods, args.repeats))
+            before = _best(before, _measure_elsewhere(args.before, args.periods, args.repeats))
+    else:
+        sys.path.insert(0, here)
+        after, before = measure(args.periods, args.repeats), None
+    print(f"PWM coil with exponential freewheel diode, 5 unknowns; CPU time, best of {args.repeats} "
+          "(compare the two columns of one run)")
     print("\nOne backward-Euler step of 0.2 us while the diode conducts (the same call repeated):")
     print(f"{'Jacobian':<10} {'us/iteration':>13} {'iterations':>11}" + (
         f" {'us/it before':>13} {'its before':>11} {'time ratio':>11}" if before else ""))

@@ -143,7 +143,7 @@ class Assembly:
 
         The constant terms (sources, history, offset) are the caller's.
         """
-        r = lin.operator @ x
+        r = lin.operator.dot(x)
         values = []
         n = self.n
         for k, batch, f_rows, q_rows in zip(self.active, self.batches, self.f_rows, self.q_rows):

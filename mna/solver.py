@@ -409,6 +409,9 @@ def newton(
         return again
 
     limiters = system.limiting_batches
+    # No limiter acts on an update whose largest entry is below all their
+    # ``limit_quiet`` (a converging iteration): then none is called.
+    quiet = min((b.limit_quiet for b in limiters), default=0.0)
     floor = system.abstol / reltol  # (the norm is computed in units of reltol)
     x = np.array(x0, dtype=float)
     ax = np.abs(x)
@@ -432,8 +435,10 @@ def newton(
         factorizer.solves += 1
         full = x - dx
         x_new = full
-        for batch in limiters:
-            x_new = batch.limit(x_new, x)
+        step = np.abs(dx)
+        if limiters and step.max() > quiet:
+            for batch in limiters:
+                x_new = batch.limit(x_new, x)
         limited = x_new is not full and not np.array_equal(x_new, full)
         damped = False
         if damping:
@@ -446,10 +451,11 @@ def newton(
                 halvings += 1
             damped = halvings > 0
         ax_new = np.abs(x_new)
-        step = np.abs(x_new - x) if (limited or damped) else np.abs(dx)
+        if limited or damped:
+            step = np.abs(x_new - x)
         scale = np.maximum(ax_new, ax)
         scale += floor
-        norm = float(np.max(step / scale)) / reltol
+        norm = float((step / scale).max()) / reltol
         theta = None if (current or previous is None) else norm / max(previous, 1e-300)
         if theta is not None and max(norm, previous) <= ROUNDOFF_UPDATE:
             theta = 0.0  # both updates at round-off: the rate means nothing

@@ -314,7 +314,10 @@ class NonlinearBatch:
         fresh state object from it (a run that continues from another).
     12. ``state_log(state, element)`` returns ``(times, values)``: the log of
         an element's discrete state over the run (for its outputs).
-    13. ``jacobian_floor`` (in the units of the Jacobian entries): Newton
+    13. ``limit_quiet`` (SI units of the unknowns): ``limit`` leaves every
+        update alone whose largest entry is at most this, and Newton does
+        not call it for such updates (default 0: always called).
+    14. ``jacobian_floor`` (in the units of the Jacobian entries): Newton
         keeps a Jacobian while each entry stays within 30 % of its value
         plus this floor (:mod:`mna.assembly`). A junction sets the linear
         leak conductance always in parallel with it; the default 0 asks
@@ -323,6 +326,7 @@ class NonlinearBatch:
 
     piecewise_linear: ClassVar[bool] = False
     jacobian_floor: ClassVar[float] = 0.0
+    limit_quiet: float = 0.0
     empty = np.empty(0, dtype=np.int64)
 
     def __init__(self, elements: Sequence[Element], stamper: "Stamper"):

@@ -89,17 +89,17 @@ class BranchPattern:
     def across(self, x: np.ndarray) -> np.ndarray:
         """``v_a - v_b`` per instance."""
         if self._across is not None:
-            return self._across @ x
+            return self._across.dot(x)
         return self._va(x) - self._vb(x)
 
     def f_values(self, current: np.ndarray) -> np.ndarray:
         """Residual values: ``+i`` at row a, ``-i`` at row b."""
         if self._f_map is not None:
-            return self._f_map @ current
+            return self._f_map.dot(current)
         return current[self._f_pick] * self._f_sign
 
     def jf_values(self, conductance: np.ndarray) -> np.ndarray:
         """Jacobian values of the 2x2 block ``[[g, -g], [-g, g]]``."""
         if self._j_map is not None:
-            return self._j_map @ conductance
+            return self._j_map.dot(conductance)
         return conductance[self._j_pick] * self._j_sign

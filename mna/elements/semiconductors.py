@@ -321,6 +321,8 @@ class DiodeBatch(NonlinearBatch):
         # No update shorter than this (V) is ever limited (both rules below
         # act only on steps longer than 2 n*Vt).
         self.quiet = 2.0 * np.minimum(self.nvt, np.where(self.breakdown, self.nbr_vt, np.inf))
+        # A junction voltage moves at most twice the largest entry of an update.
+        self.limit_quiet = float(self.quiet.min()) / 2.0 if elements else 0.0
         self.f_rows = self.pattern.f_rows
         self.jf_rows, self.jf_cols = self.pattern.jf_rows, self.pattern.jf_cols
         self._recovery(elements)
@@ -387,7 +389,7 @@ class DiodeBatch(NonlinearBatch):
         return self.pattern.across(x)
 
     def limit(self, x_new, x_old):
-        if not np.any(np.abs(self.pattern.across(x_new - x_old)) > self.quiet):
+        if not (np.abs(self.pattern.across(x_new - x_old)) > self.quiet).any():
             return x_new  # the usual case near convergence: no junction moved 2 n*Vt
         v_new = self.pattern.across(x_new)
         if not self.any_breakdown and not np.any(v_new > self.vcrit):
