@@ -34,6 +34,7 @@ BUILTIN = {
     "speed-source": "mna.elements.mechanical:SpeedSource",
     "gear": "mna.elements.mechanical:Gear",
     "diode": "mna.elements.semiconductors:Diode",
+    "ideal-diode": "mna.elements.ideal_diode:IdealDiode",
     "coupling": "mna.elements.magnetics:Coupling",
     "transformer": "mna.elements.magnetics:Transformer",
     "choke": "mna.elements.magnetics:Choke",
