@@ -72,7 +72,8 @@ from .waveforms import Constant, Piecewise, Pulse, Sine, Step, Waveform
 TRANSIENT_SETTINGS: dict[str, Arg] = {
     "until": Arg("until", SECOND, positive=True, doc="end time"),
     "step": Arg("step", SECOND, default=None, positive=True, doc="fixed time step"),
-    "method": Arg("method", None, default="backward-euler", kind="choice", choices=tuple(METHODS)),
+    # (None: exact intervals where the circuit is piecewise linear, else the default method)
+    "method": Arg("method", None, default=None, kind="choice", choices=tuple(METHODS)),
     "start": Arg("start", None, default="dc", kind="choice", choices=("dc", "rest")),
     "tolerance": Arg("tolerance", DIMENSIONLESS, default=None, positive=True,
                      doc="relative local error per step (error-controlled runs)"),
@@ -82,6 +83,8 @@ TRANSIENT_SETTINGS: dict[str, Arg] = {
                              doc="absolute floor of the local error on currents"),
     "max-step": Arg("max-step", SECOND, default=None, positive=True, doc="largest step"),
     "min-step": Arg("min-step", SECOND, default=None, positive=True, doc="smallest step before failing"),
+    "event-tolerance": Arg("event-tolerance", SECOND, default=None, positive=True,
+                           doc="how precisely switching events are located in time"),
     "sample": Arg("sample", SECOND, default=None, positive=True,
                   doc="also resample the results on a uniform grid of this spacing"),
     # Work limits (mna.limits): raise them to allow a longer run.

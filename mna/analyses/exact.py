@@ -101,14 +101,16 @@ def _phi2(z: np.ndarray) -> np.ndarray:
     return out
 
 
-def _sine_integral(lam: np.ndarray, jw: complex, s: float) -> np.ndarray:
-    """The integral over [0, s] of exp(lam (s - v)) exp(jw v) dv, per eigenvalue."""
+def _sine_integral(lam: np.ndarray, jw: complex, s: np.ndarray) -> np.ndarray:
+    """The integral over [0, s] of exp(lam (s - v)) exp(jw v) dv (broadcast over lam and s)."""
+    lam, s = np.broadcast_arrays(np.asarray(lam, dtype=complex), np.asarray(s, dtype=float))
     z = (jw - lam) * s
-    out = np.empty(lam.shape, dtype=complex)
+    out = np.empty(z.shape, dtype=complex)
     small = np.abs(z) < SERIES_LIMIT
-    out[small] = np.exp(lam[small] * s) * s * (1 + z[small] / 2 + z[small] ** 2 / 6)
+    ls, ss, zs = lam[small], s[small], z[small]
+    out[small] = np.exp(ls * ss) * ss * (1 + zs / 2 + zs * zs / 6)
     big = ~small
-    out[big] = (np.exp(jw * s) - np.exp(lam[big] * s)) / (jw - lam[big])
+    out[big] = (np.exp(jw * s[big]) - np.exp(lam[big] * s[big])) / (jw - lam[big])
     return out
 
 
@@ -197,42 +199,56 @@ class LinearModes:
     # -- propagation ---------------------------------------------------------------
     def y_at(self, y0: np.ndarray, inputs: Inputs, s: np.ndarray) -> np.ndarray:
         """y at the offsets ``s`` (s, >= 0) from the interval's start, one row per offset."""
+        return self.trajectory(y0, inputs)(s)
+
+    def trajectory(self, y0: np.ndarray, inputs: Inputs) -> "Trajectory":
+        """y(s) over one interval from y0 with these sources (coefficients computed once)."""
+        return Trajectory(self, y0, inputs)
+
+class Trajectory:
+    """y(s) of one interval: the eigen-basis coefficients of every term, computed once."""
+
+    def __init__(self, modes: LinearModes, y0: np.ndarray, inputs: Inputs):
+        self.modes, self.y0 = modes, y0
+        self.const, self.ramp, self.sines = modes.forcing(inputs)
+        if modes.r and modes.use_eigen:
+            Xi = modes.X_inv
+            self.z0, self.zc, self.zr = Xi @ y0, Xi @ self.const, Xi @ self.ramp
+            self.zs = [(w, Xi @ g) for w, g in self.sines]
+
+    def __call__(self, s) -> np.ndarray:
         s = np.atleast_1d(np.asarray(s, dtype=float))
-        if self.r == 0:
+        modes = self.modes
+        if modes.r == 0:
             return np.zeros((s.size, 0))
-        const, ramp, sines = self.forcing(inputs)
-        if self.use_eigen:
-            return self._y_eigen(y0, const, ramp, sines, s)
-        return np.array([self._y_expm(y0, const, ramp, sines, float(v)) for v in s])
+        if not modes.use_eigen:
+            return np.array([self._expm(float(v)) for v in s])
+        lam = modes.lam
+        lv = np.multiply.outer(s, lam)  # one row per offset
+        sc = s[:, None]
+        z = np.exp(lv) * self.z0 + sc * _phi1(lv) * self.zc
+        if np.any(self.zr):
+            z = z + sc * sc * _phi2(lv) * self.zr
+        for w, g in self.zs:
+            z = z + _sine_integral(lam[None, :], 1j * w, sc) * g
+        return (z @ modes.X.T).real
 
-    def _y_eigen(self, y0, const, ramp, sines, s) -> np.ndarray:
-        lam, X, Xi = self.lam, self.X, self.X_inv
-        z0, zc, zr = Xi @ y0, Xi @ const, Xi @ ramp
-        zs = [(w, Xi @ g) for w, g in sines]
-        out = np.empty((s.size, self.r))
-        for i, v in enumerate(s.tolist()):
-            lv = lam * v
-            z = np.exp(lv) * z0 + v * _phi1(lv) * zc + v * v * _phi2(lv) * zr
-            for w, g in zs:
-                z = z + _sine_integral(lam, 1j * w, v) * g
-            out[i] = (X @ z).real
-        return out
-
-    def _y_expm(self, y0, const, ramp, sines, s: float) -> np.ndarray:
-        """The same by one matrix exponential of the augmented system (defective M)."""
-        r = self.r
-        blocks = [const, ramp]
+    def _expm(self, s: float) -> np.ndarray:
+        """y(s) by one matrix exponential of the augmented system (when M is defective)."""
+        modes = self.modes
+        r = modes.r
+        blocks = [self.const, self.ramp]
         gens = [np.array([[0.0, 0.0], [1.0, 0.0]])]  # (1, s): 1' = 0, s' = 1
-        for w, g in sines:
+        for w, g in self.sines:
             blocks += [g.real, -g.imag]  # Re[g e^{jws}] = g.re cos - g.im sin
             gens.append(np.array([[0.0, -w], [w, 0.0]]))  # (cos, sin)
         p = len(blocks)
         Z = np.zeros((r + p, r + p))
-        Z[:r, :r] = self.M
+        Z[:r, :r] = modes.M
         Z[:r, r:] = np.column_stack(blocks)
         Z[r:, r:] = la.block_diag(*gens)
         e0 = np.zeros(r + p)
-        e0[:r] = y0
+        e0[:r] = self.y0
         e0[r] = 1.0
         e0[r + 2::2] = 1.0  # cos(0) = 1
         return (la.expm(Z * s) @ e0)[:r]

@@ -66,7 +66,10 @@ class TransientSettings:
             self.notes.append(f"step={self.step:.6g} s is longer than until={self.until:.6g} s: "
                               f"the run takes one step of {self.until:.6g} s")
             self.step = self.until
-        self.method: type[Stepper] = get_method(settings.get("method") or DEFAULT_METHOD)
+        asked = settings.get("method")
+        self.method: type[Stepper] = get_method(asked or DEFAULT_METHOD)
+        #: No method named: piecewise-linear circuits take exact intervals.
+        self.method_chosen = asked is None
         self.start = settings.get("start") or "dc"
         #: A run continuing from an earlier run's end (start=CircuitState): its
         #: time is the run's start time t0.
@@ -90,6 +93,8 @@ class TransientSettings:
         if self.min_step >= self.until:
             raise InputError(f"min-step={self.min_step:.6g} s must be shorter than until={self.until:.6g} s")
         self.sample = _number(settings, "sample", "s")
+        #: How precisely switching events are located on the dense output (s).
+        self.event_tolerance = _number(settings, "event-tolerance", "s") or self.until * 1e-12
         self.progress = settings.get("progress")
         self.limits = Limits(**{field: _limit(settings, key, default)
                                 for key, (field, default) in LIMIT_SETTINGS.items()})

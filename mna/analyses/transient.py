@@ -42,7 +42,7 @@ import numpy as np
 
 from .. import limits
 from ..errors import InputError, SimulationError
-from ..methods import Step, Stepper, get_method
+from ..methods import ExactStepper, NotExact, Step, Stepper, get_method
 from ..methods.base import CANDIDATE, NOT_CONVERGED
 from ..results import Waveforms
 from ..runstate import CircuitState, DiscreteStates
@@ -52,7 +52,7 @@ from ..units import AMPERE, KELVIN, VOLT
 from ..values import SignalRef
 from .common import compute_signal, dc_leak, default_signals, plan, prepare, require_finite, unit_label
 from .dc import solve_dc
-from .settings import DEFAULT_TOLERANCE
+from .settings import DEFAULT_METHOD, DEFAULT_TOLERANCE
 from .settings import TransientSettings as _Settings
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -178,6 +178,16 @@ class _Timeline:
         self.k = 1  # next grid point
         self.i = 0  # next corner
 
+    def land_on(self, times: np.ndarray) -> None:
+        """Make every time in ``times`` (s) the end of a step (exact output on a grid)."""
+        times = np.asarray(times, dtype=float)
+        times = times[(times > 0) & (times < self.until)]
+        if self.fixed:
+            self.grid = np.union1d(self.grid, times)
+            self.grid_corner = _corner_flags(self.grid, self.corners)
+        else:
+            self.corners = np.union1d(self.corners, times)
+
     def first_step(self) -> float:
         """The first step to try (s)."""
         if self.fixed:
@@ -247,6 +257,8 @@ class _Run:
         self.factorizer = Factorizer(system, cache_size=16)
         self.tolerance = cfg.tolerance
         self.stepper: Stepper | None = None
+        #: Why the run took the path it took (exact intervals or the integrator).
+        self.path_notes: list[str] = []
         capacity = int(min(cfg.until / cfg.step, 5e7)) + 16 if cfg.step else 4096
         self.rec = _Recorder(len(need_x), len(need_states), 16)
         cfg.limits.check_memory(capacity, self.rec.width)
@@ -474,8 +486,11 @@ class _Run:
         x = self.x_before = self.initial_point()
         self.record(t0, x, np.zeros(len(self.need_states)))
         self.q_scale = np.abs(self.charges(x, t0)[self.q_rows])
-        stepper = self.stepper = cfg.method(self, t0, x, line.first_step(), self.starting_rates(x))
+        stepper = self.stepper = self.new_stepper(t0, x, line.first_step(), self.starting_rates(x))
         self.h_smooth = stepper.h
+        if isinstance(stepper, ExactStepper) and cfg.sample is not None:
+            # Exact intervals give exact values where a step ends: end one on every sample.
+            line.land_on(np.arange(0.0, cfg.until + cfg.sample * 1e-9, cfg.sample))
         self.restart_key = None
         self.since_restart = 0
         next_report = _time.perf_counter() + 0.2
@@ -489,10 +504,25 @@ class _Run:
             self.accept(stepper, step)
             if landing or self.event_batches:
                 self.after_step(stepper, line, step, landing)
+                stepper = self.stepper  # (a switch state without exact intervals changes it)
             if stepper.t >= cfg.until * (1 - 1e-14):
                 break
         stepper.finish()
         self.end = (stepper.t, self.x_before)  # the values at the end, after any event there
+
+    def new_stepper(self, t: float, x: np.ndarray, h: float, rates) -> Stepper:
+        """The exact-interval stepper when asked for, or chosen and the circuit qualifies; else the method."""
+        cfg = self.cfg
+        if cfg.method is ExactStepper or cfg.method_chosen:
+            try:
+                return ExactStepper(self, t, x, h, rates)
+            except NotExact as exc:
+                if not cfg.method_chosen:
+                    raise InputError(f"method=exact cannot solve this circuit: {exc}; name an integration "
+                                     f"method instead (method={DEFAULT_METHOD})") from None
+                self.path_notes.append(f"integrated: no exact intervals because {exc}")
+        method = get_method(DEFAULT_METHOD) if cfg.method is ExactStepper else cfg.method
+        return method(self, t, x, h, rates)
 
     def starting_rates(self, x: np.ndarray) -> np.ndarray | None:
         """d/dt q just after t = 0 when the start is consistent there, else None.
@@ -564,10 +594,40 @@ class _Run:
         for a in range(pieces):
             te = self.event_time(times[a], xs[a], times[a + 1], xs[a + 1])
             if te is not None:
-                if te - t0 > max(self.cfg.min_step, 1e-6 * h) and t1 - te > 1e-9 * h:
+                te = self.refine_event(step.dense, times[a], xs[a], times[a + 1], xs[a + 1], te)
+                # (an integrator does not land within a millionth of a step
+                # of its start; an exact trajectory lands anywhere)
+                near = self.cfg.min_step if step.dense.exact else max(self.cfg.min_step, 1e-6 * h)
+                if te - t0 > near and t1 - te > 1e-9 * h:
                     return te
                 return None
         return None
+
+    def refine_event(self, dense, ta: float, xa: np.ndarray, tb: float, xb: np.ndarray, te: float) -> float:
+        """The event in (ta, tb] located on the dense output to ``event-tolerance`` (s).
+
+        Regula falsi on the batches' own crossing test (each ``event_time``
+        interpolates linearly inside the bracket it is given), with a
+        bisection every third iteration so that a curved trajectory cannot
+        hold one end of the bracket still.
+        """
+        tol = self.cfg.event_tolerance
+        for k in range(60):
+            if tb - ta <= tol:
+                break
+            if k % 3 == 2 or not ta < te < tb:
+                te = 0.5 * (ta + tb)
+            xe = dense(te)
+            inside = self.event_time(ta, xa, te, xe)
+            if inside is not None:
+                tb, xb, te = te, xe, inside
+            else:
+                ta, xa = te, xe
+                te = self.event_time(ta, xa, tb, xb)
+                if te is None:  # pragma: no cover - the crossing left the bracket (round-off)
+                    break
+        final = self.event_time(ta, xa, tb, xb)  # (the batches note the crossing they land on)
+        return tb if final is None else final
 
     def accept(self, stepper: Stepper, step: Step) -> None:
         stepper.accept(step)
@@ -599,13 +659,25 @@ class _Run:
             h0 = max(h_try, self.cfg.min_step) * JUMP_FRACTION
             q = self.charges(x, t)
             x_jump = self.jump(x, t, h0, q)
+            # One change can cause another at the same instant (a switch
+            # opens and drives a diode's voltage past its drop): settle them.
+            for _ in range(8):
+                if not (self.event_batches and self.update_events(t, x_jump)):
+                    break
+                x_jump = self.jump(x, t, h0, q)
             xdot = (x_jump - x) / h0
             self.rates_now = self.state_rates(xdot)
             if not line.fixed:
                 rates0 = self.rates_after_jump(x_jump, t, h0, q, self.charges(x_jump, t))
             x = self.x_before = x_jump
             self.record(t, x, self.rates_now)
-        stepper.restart(t, x, self.restart_step(line, t, h_try, rates0), rates0, xdot)
+        h_next = self.restart_step(line, t, h_try, rates0)
+        try:
+            stepper.restart(t, x, h_next, rates0, xdot)
+        except NotExact as exc:
+            # This switch state has no exact intervals: integrate from here on.
+            self.path_notes.append(f"exact intervals stopped at t = {t:.6g} s: {exc}; integrated from there")
+            self.stepper = self.cfg.method(self, t, x, h_next, rates0)
         self.since_restart = 0
 
     def restart_step(self, line: _Timeline, t: float, h_try: float, rates0) -> float:
@@ -730,12 +802,17 @@ def _statistics(run: _Run, cfg: _Settings, system: System, started: float, n: in
         "solves": int(run.factorizer.solves + work.get("solves", 0)),
         "smallest_step_s": float(steps.min()) if steps.size else 0.0,
         "largest_step_s": float(steps.max()) if steps.size else 0.0,
-        "method": cfg.method.name,
-        "step_control": "fixed" if cfg.step is not None else "error-controlled",
+        "method": run.stepper.name if run.stepper is not None else cfg.method.name,
+        "path": "exact intervals" if isinstance(run.stepper, ExactStepper) else "integrator",
+        "path_notes": list(run.path_notes),
+        "step_control": ("exact" if isinstance(run.stepper, ExactStepper) else
+                         "fixed" if cfg.step is not None else "error-controlled"),
         "unknowns": system.n,
         "wall_time_s": _time.perf_counter() - started,
     }
     statistics["steps"] = statistics["accepted_steps"]
+    if isinstance(run.stepper, ExactStepper):
+        statistics.update(run.stepper.counts)
     return statistics
 
 

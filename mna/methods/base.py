@@ -84,6 +84,8 @@ class DenseOutput:
     """
 
     order: int = 1
+    #: The trajectory itself, not an approximation (events may be landed on anywhere).
+    exact: bool = False
 
     def __init__(self, t_old: float, t: float):
         self.t_old = t_old

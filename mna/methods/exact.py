@@ -1,0 +1,191 @@
+"""Exact intervals: the stepper of piecewise-linear circuits.
+
+When every element is linear or piecewise linear (resistors, capacitors,
+inductors, couplings, transformers, switches, ``ideal-diode``) and every
+source is constant, a step, a ramp, a PWM train, a piecewise-linear table
+or a sine, the circuit between two events is a linear time-invariant
+descriptor system whose solution is known in closed form
+(:mod:`mna.analyses.exact`). This stepper takes each interval in one piece:
+no truncation error, no error control, no Newton iteration. Its dense
+output is the exact trajectory, so events (a diode's drop crossed, a
+comparison gate's level) are located on it and the output on any grid is
+exact to round-off.
+
+Per switch state the reduction to the differential part and the
+eigen-decomposition are computed once; per (switch state, step length) the
+propagators are computed once and reused, so a PWM period at a steady
+frequency costs a few matrix-vector products (``statistics`` counts the
+propagators built and reused).
+
+The run picks this stepper by itself when the circuit qualifies
+(:func:`qualifies`); ``method=exact`` asks for it and explains a refusal;
+naming any other method forces the integrator.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..analyses.exact import Inputs, LinearModes, NotIndexOne, SourceEntries, state_matrices, _phi1, _phi2
+from .base import CANDIDATE, DenseOutput, Step, Stepper
+
+#: Largest circuit (unknowns) taken on the exact path: the reduction is dense.
+EXACT_LIMIT = 200
+#: With switching events possible, a step spans at most this fraction of the
+#: fastest oscillation period, so that no crossing hides between the points
+#: the run looks at.
+EVENT_PERIOD_FRACTION = 0.5
+#: Propagators kept per run (switch state x step length).
+PROPAGATOR_CACHE = 256
+
+
+class NotExact(Exception):
+    """The circuit, or its present switch state, cannot take the exact path."""
+
+
+def qualifies(system) -> str | None:
+    """None if the system can take the exact path, else the reason (for a message)."""
+    if system.n > EXACT_LIMIT:
+        return f"it has {system.n} unknowns (the exact path takes up to {EXACT_LIMIT})"
+    for slot in system.batches:
+        if not slot.batch.piecewise_linear:
+            names = ", ".join(e.name for e in slot.batch.elements[:3])
+            return (f"{names} {'is' if len(slot.batch.elements) == 1 else 'are'} nonlinear "
+                    "(only linear and switched elements, and ideal-diode, have exact intervals)")
+        if slot.batch.q_rows.size:
+            return f"{slot.batch.elements[0].name} has a charge that depends on its state"
+    entries = SourceEntries(system)
+    if not entries.supported:
+        kinds = sorted({type(w).__name__ for w in entries.waves})
+        return f"a source waveform ({', '.join(kinds)}) is not affine or sinusoidal between corners"
+    return None
+
+
+class ExactDense(DenseOutput):
+    """The exact trajectory inside one interval."""
+
+    order = 99  # exact: the run samples it as finely as its highest order asks
+    exact = True
+
+    def __init__(self, stepper: "ExactStepper", modes: LinearModes, y0: np.ndarray, inputs: Inputs,
+                 t_old: float, t: float):
+        super().__init__(t_old, t)
+        self.stepper, self.modes, self.inputs = stepper, modes, inputs
+        self.trajectory = modes.trajectory(y0, inputs)
+
+    def __call__(self, t):
+        flat = np.atleast_1d(np.asarray(t, dtype=float) - self.t_old)
+        x = self.modes.x_of(self.trajectory(flat), self.inputs.at(flat))
+        return x[0] if np.ndim(t) == 0 else x
+
+    def derivative(self, t):
+        flat = np.atleast_1d(np.asarray(t, dtype=float) - self.t_old)
+        y = self.trajectory(flat)
+        xd = np.array([self.stepper.xdot_at(self.modes, yi, self.inputs, si)
+                       for yi, si in zip(y, flat.tolist())])
+        return xd[0] if np.ndim(t) == 0 else xd
+
+
+class ExactStepper(Stepper):
+    """One interval between corners or events in one exact step."""
+
+    name = "exact"
+    order = 99
+    summary = "exact solution of piecewise-linear circuits between events (no truncation error)"
+
+    def __init__(self, problem, t, x, h, rates=None):
+        reason = qualifies(problem.system)
+        if reason is not None:
+            raise NotExact(reason)
+        self.sources = SourceEntries(problem.system)
+        self.modes_by_state: dict = {}
+        self.propagators: dict = {}
+        self.counts = {"propagators_built": 0, "propagators_reused": 0, "switch_states": 0}
+        super().__init__(problem, t, x, h, rates)
+
+    # -- per switch state ---------------------------------------------------------------
+    def modes(self) -> LinearModes:
+        key = self.problem.state_key()
+        modes = self.modes_by_state.get(key)
+        if modes is None:
+            system = self.problem.system
+            C, G, f0 = state_matrices(system, getattr(self.problem, "discrete", None), self.t)
+            try:
+                modes = LinearModes(C, G, f0, self.sources.S)
+            except NotIndexOne as exc:
+                raise NotExact(f"in the switch state at t = {self.t:.6g} s the circuit is not of index 1 "
+                               f"({exc})") from None
+            self.modes_by_state[key] = modes
+            self.counts["switch_states"] += 1
+        return modes
+
+    def _restart(self, rates) -> None:
+        self.current = self.modes()
+        self.y = self.current.y_from_charges(self.current.C @ self.x)
+        self.xdot = np.zeros(self.x.size)
+        # Each interval is exact: the next step may reach the next corner.
+        self.h = self._longest_step(self.current)
+
+    # -- one step -----------------------------------------------------------------------------
+    def _attempt(self, t_new: float, h: float, error_control: bool) -> Step:
+        modes = self.current
+        inputs = self.sources.inputs(self.t, t_new)
+        dense = ExactDense(self, modes, self.y, inputs, self.t, t_new)
+        y1 = self._propagate(modes, inputs, h, dense)
+        x1 = modes.x_of(y1[None, :], inputs.at([h]))[0]
+        xdot = self.xdot_at(modes, y1, inputs, h)
+        return Step(CANDIDATE, self.t, t_new, x=x1, xdot=xdot, dense=dense, error=0.0,
+                    h_next=self._longest_step(modes), memo=y1, length=h)
+
+    def _accept(self, step: Step) -> None:
+        self.y = step.memo
+        self.xdot = step.xdot
+
+    def _longest_step(self, modes: LinearModes) -> float:
+        """The next step may span the whole gap to the next corner, but not hide two crossings."""
+        if not getattr(self.problem, "event_batches", False) or not modes.use_eigen:
+            return np.inf
+        fastest = float(np.max(np.abs(modes.lam.imag))) if modes.lam.size else 0.0
+        if fastest <= 0:
+            return np.inf
+        return EVENT_PERIOD_FRACTION * 2 * np.pi / fastest * 8
+
+    def xdot_at(self, modes: LinearModes, y: np.ndarray, inputs: Inputs, s: float) -> np.ndarray:
+        """dx/dt (per second) on the exact trajectory at offset s into the interval."""
+        u = inputs.at([s])[0]
+        du = inputs.b.copy()
+        if inputs.omega.size:
+            ws = inputs.omega * s
+            du = du + (-np.sin(ws) * inputs.omega) @ inputs.c + (np.cos(ws) * inputs.omega) @ inputs.d
+        ydot = modes.M @ y + modes.NS @ u - modes.Nf0 if modes.r else np.zeros(0)
+        return modes.P @ ydot + modes.QS @ du
+
+    # -- propagators ------------------------------------------------------------------------
+    def _propagate(self, modes: LinearModes, inputs: Inputs, h: float, dense: ExactDense) -> np.ndarray:
+        """y at the end of a step of h (s); with affine sources by cached propagators."""
+        if modes.r == 0:
+            return np.zeros(0)
+        if inputs.omega.size or not modes.use_eigen:
+            return dense.trajectory([h])[0]
+        key = (id(modes), h)
+        prop = self.propagators.get(key)
+        if prop is None:
+            prop = self._build(modes, h)
+            if len(self.propagators) >= PROPAGATOR_CACHE:
+                self.propagators.pop(next(iter(self.propagators)))
+            self.propagators[key] = prop
+            self.counts["propagators_built"] += 1
+        else:
+            self.counts["propagators_reused"] += 1
+        Phi, Ga, Gb, g0 = prop
+        return Phi @ self.y + Ga @ inputs.a + Gb @ inputs.b - g0
+
+    @staticmethod
+    def _build(modes: LinearModes, h: float):
+        """Real matrices of one step: y1 = Phi y0 + Ga a + Gb b - g0 (a, b: source values and slopes)."""
+        lam, X, Xi = modes.lam, modes.X, modes.X_inv
+        lh = lam * h
+        Phi = (X * np.exp(lh)) @ Xi
+        K1 = (X * (h * _phi1(lh))) @ Xi
+        K2 = (X * (h * h * _phi2(lh))) @ Xi
+        return Phi.real, (K1 @ modes.NS).real, (K2 @ modes.NS).real, (K1 @ modes.Nf0).real
