@@ -656,19 +656,23 @@ class _Run:
         rates0 = xdot = None
         h_try = step.h
         if jumped or switched:
-            h0 = max(h_try, self.cfg.min_step) * JUMP_FRACTION
-            q = self.charges(x, t)
-            x_jump = self.jump(x, t, h0, q)
-            # One change can cause another at the same instant (a switch
-            # opens and drives a diode's voltage past its drop): settle them.
-            for _ in range(8):
-                if not (self.event_batches and self.update_events(t, x_jump)):
-                    break
+            own = self.after_event_of(stepper, t, x)
+            if own is not None:  # the stepper's own consistent state just after t
+                x_jump, xdot = own
+            else:
+                h0 = max(h_try, self.cfg.min_step) * JUMP_FRACTION
+                q = self.charges(x, t)
                 x_jump = self.jump(x, t, h0, q)
-            xdot = (x_jump - x) / h0
+                # One change can cause another at the same instant (a switch
+                # opens and drives a diode's voltage past its drop): settle them.
+                for _ in range(8):
+                    if not (self.event_batches and self.update_events(t, x_jump)):
+                        break
+                    x_jump = self.jump(x, t, h0, q)
+                xdot = (x_jump - x) / h0
+                if not line.fixed:
+                    rates0 = self.rates_after_jump(x_jump, t, h0, q, self.charges(x_jump, t))
             self.rates_now = self.state_rates(xdot)
-            if not line.fixed:
-                rates0 = self.rates_after_jump(x_jump, t, h0, q, self.charges(x_jump, t))
             x = self.x_before = x_jump
             self.record(t, x, self.rates_now)
         h_next = self.restart_step(line, t, h_try, rates0)
@@ -679,6 +683,20 @@ class _Run:
             self.path_notes.append(f"exact intervals stopped at t = {t:.6g} s: {exc}; integrated from there")
             self.stepper = self.cfg.method(self, t, x, h_next, rates0)
         self.since_restart = 0
+
+    def after_event_of(self, stepper: Stepper, t: float, x: np.ndarray):
+        """(x, dx/dt) just after an event at t from the stepper itself, settling
+        changes that cause others at the same instant; None where it has no
+        such state of its own (the run then solves a short jump step)."""
+        try:
+            own = stepper.after_event(t, x)
+            for _ in range(8):
+                if own is None or not self.update_events(t, own[0]):
+                    break
+                own = stepper.after_event(t, x)
+        except NotExact:
+            return None
+        return own
 
     def restart_step(self, line: _Timeline, t: float, h_try: float, rates0) -> float:
         """The first step after a restart (s)."""

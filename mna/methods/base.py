@@ -249,6 +249,12 @@ class Stepper:
         if step.h_next is not None:
             self.h = step.h_next
 
+    def after_event(self, t: float, x: np.ndarray) -> tuple[np.ndarray, np.ndarray] | None:
+        """``(x, dx/dt)`` just after a switching event or a source jump at t, in
+        the new switch state, keeping the charges and fluxes of ``x``; None
+        (the default) lets the run find it by a very short implicit step."""
+        return None
+
     def finish(self) -> None:
         self.status = "finished"
 

@@ -62,16 +62,21 @@ def qualifies(system) -> str | None:
 
 
 class ExactDense(DenseOutput):
-    """The exact trajectory inside one interval."""
+    """The exact trajectory inside one interval (its coefficients computed on first use)."""
 
     order = 99  # exact: the run samples it as finely as its highest order asks
     exact = True
 
-    def __init__(self, stepper: "ExactStepper", modes: LinearModes, y0: np.ndarray, inputs: Inputs,
-                 t_old: float, t: float):
+    def __init__(self, modes: LinearModes, y0: np.ndarray, inputs: Inputs, t_old: float, t: float):
         super().__init__(t_old, t)
-        self.stepper, self.modes, self.inputs = stepper, modes, inputs
-        self.trajectory = modes.trajectory(y0, inputs)
+        self.modes, self.y0, self.inputs = modes, y0, inputs
+        self._trajectory = None
+
+    @property
+    def trajectory(self):
+        if self._trajectory is None:
+            self._trajectory = self.modes.trajectory(self.y0, self.inputs)
+        return self._trajectory
 
     def __call__(self, t):
         flat = np.atleast_1d(np.asarray(t, dtype=float) - self.t_old)
@@ -80,10 +85,21 @@ class ExactDense(DenseOutput):
 
     def derivative(self, t):
         flat = np.atleast_1d(np.asarray(t, dtype=float) - self.t_old)
-        y = self.trajectory(flat)
-        xd = np.array([self.stepper.xdot_at(self.modes, yi, self.inputs, si)
-                       for yi, si in zip(y, flat.tolist())])
+        xd = xdot_rows(self.modes, self.trajectory(flat), self.inputs, flat)
         return xd[0] if np.ndim(t) == 0 else xd
+
+
+def xdot_rows(modes: LinearModes, y: np.ndarray, inputs: Inputs, s: np.ndarray) -> np.ndarray:
+    """dx/dt (per second) on the exact trajectory at the offsets s (rows of y)."""
+    u = inputs.at(s)
+    du = np.broadcast_to(inputs.b, u.shape)
+    if inputs.omega.size:
+        ws = np.outer(s, inputs.omega)
+        du = du + (-np.sin(ws) * inputs.omega) @ inputs.c + (np.cos(ws) * inputs.omega) @ inputs.d
+    if modes.r:
+        ydot = y @ modes.M.T + u @ modes.NS.T - modes.Nf0
+        return ydot @ modes.P.T + du @ modes.QS.T
+    return du @ modes.QS.T
 
 
 class ExactStepper(Stepper):
@@ -126,14 +142,25 @@ class ExactStepper(Stepper):
         # Each interval is exact: the next step may reach the next corner.
         self.h = self._longest_step(self.current)
 
+    def after_event(self, t: float, x: np.ndarray):
+        """The state just after t in the new switch state: charges and fluxes
+        kept, every algebraic unknown from the new topology (no jump solve)."""
+        self.t = t
+        modes = self.modes()
+        y = modes.y_from_charges(modes.C @ x)
+        delta = 1e-9 * max(abs(t), 1e-6)
+        inputs = self.sources.inputs(t, t + delta)
+        x_after = modes.x_of(y[None, :], inputs.a[None, :])[0]
+        return x_after, xdot_rows(modes, y[None, :], inputs, np.zeros(1))[0]
+
     # -- one step -----------------------------------------------------------------------------
     def _attempt(self, t_new: float, h: float, error_control: bool) -> Step:
         modes = self.current
         inputs = self.sources.inputs(self.t, t_new)
-        dense = ExactDense(self, modes, self.y, inputs, self.t, t_new)
+        dense = ExactDense(modes, self.y, inputs, self.t, t_new)
         y1 = self._propagate(modes, inputs, h, dense)
         x1 = modes.x_of(y1[None, :], inputs.at([h]))[0]
-        xdot = self.xdot_at(modes, y1, inputs, h)
+        xdot = xdot_rows(modes, y1[None, :], inputs, np.array([h]))[0]
         return Step(CANDIDATE, self.t, t_new, x=x1, xdot=xdot, dense=dense, error=0.0,
                     h_next=self._longest_step(modes), memo=y1, length=h)
 
@@ -149,16 +176,6 @@ class ExactStepper(Stepper):
         if fastest <= 0:
             return np.inf
         return EVENT_PERIOD_FRACTION * 2 * np.pi / fastest * 8
-
-    def xdot_at(self, modes: LinearModes, y: np.ndarray, inputs: Inputs, s: float) -> np.ndarray:
-        """dx/dt (per second) on the exact trajectory at offset s into the interval."""
-        u = inputs.at([s])[0]
-        du = inputs.b.copy()
-        if inputs.omega.size:
-            ws = inputs.omega * s
-            du = du + (-np.sin(ws) * inputs.omega) @ inputs.c + (np.cos(ws) * inputs.omega) @ inputs.d
-        ydot = modes.M @ y + modes.NS @ u - modes.Nf0 if modes.r else np.zeros(0)
-        return modes.P @ ydot + modes.QS @ du
 
     # -- propagators ------------------------------------------------------------------------
     def _propagate(self, modes: LinearModes, inputs: Inputs, h: float, dense: ExactDense) -> np.ndarray:
