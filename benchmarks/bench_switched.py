@@ -196,16 +196,17 @@ def radau_interval(drv: Intervals, rtol: float, grid: np.ndarray):
             ev.terminal = True
             ev.direction = 1
             events.append(ev)
-        ts = np.concatenate([grid[(grid > t0) & (grid < t1)], [t1]])
         sol = solve_ivp(rhs, (t0, t1), y0, method="Radau", jac=m.M, rtol=rtol, atol=rtol * 1e-6,
-                        t_eval=ts, events=events or None)
+                        dense_output=True, events=events or None)
         if sol.status == 1:  # a diode event stopped it
             j = next(i for i, e in enumerate(sol.t_events) if e.size)
             t_end, y_end = float(sol.t_events[j][0]), sol.y_events[j][0]
         else:
             t_end, y_end = t1, sol.y[:, -1]
-        xs = np.array([x_of(t, y) for t, y in zip(sol.t, sol.y.T)]) if sol.t.size else np.zeros((0, x0.size))
-        return t_end, x_of(t_end, y_end), sol.t, xs
+        # the solver's output at the grid points inside the interval (its dense output)
+        ts = np.concatenate([[t0], grid[(grid > t0) & (grid < t_end)], [t_end]])
+        xs = np.array([x_of(t, sol.sol(t)) for t in ts])
+        return t_end, x_of(t_end, y_end), ts, xs
     return solve
 
 
@@ -242,7 +243,7 @@ def ida_interval(drv: Intervals, rtol: float, grid: np.ndarray, nonlinear: bool)
             opts.update(eventsfn=eventsfn, num_events=int(m0.size))
         ts = np.concatenate([[t0], grid[(grid > t0) & (grid < t1)], [t1]])
         sol = IDA(resfn, **opts).solve(ts, x0, np.zeros_like(x0))
-        t_end = float(sol.t[-1])
+        t_end = float(sol.t[-1])  # t1, or the diode event that stopped it (terminal)
         return t_end, sol.y[-1], sol.t, sol.y
     return solve
 
