@@ -31,10 +31,10 @@ from .base import CANDIDATE, DenseOutput, Step, Stepper
 
 #: Largest circuit (unknowns) taken on the exact path: the reduction is dense.
 EXACT_LIMIT = 200
-#: With switching events possible, a step spans at most this fraction of the
-#: fastest oscillation period, so that no crossing hides between the points
-#: the run looks at.
-EVENT_PERIOD_FRACTION = 0.5
+#: With switching events possible, a step spans at most this many periods of
+#: the fastest lasting oscillation, so that no crossing hides between the
+#: points the run looks at (eight per step: two per period).
+OSCILLATION_PERIODS = 4.0
 #: Propagators kept per run (switch state x step length).
 PROPAGATOR_CACHE = 256
 
@@ -169,13 +169,20 @@ class ExactStepper(Stepper):
         self.xdot = step.xdot
 
     def _longest_step(self, modes: LinearModes) -> float:
-        """The next step may span the whole gap to the next corner, but not hide two crossings."""
-        if not getattr(self.problem, "event_batches", False) or not modes.use_eigen:
+        """The next step may span the whole gap to the next corner, but not hide two crossings.
+
+        With switching events possible, a step spans at most four periods
+        of the fastest oscillation that lasts (one that loses less than
+        e^-2pi of its amplitude per period), so that the eight points the
+        run looks at in each step see every crossing.
+        """
+        if not getattr(self.problem, "event_batches", False) or not modes.use_eigen or not modes.lam.size:
             return np.inf
-        fastest = float(np.max(np.abs(modes.lam.imag))) if modes.lam.size else 0.0
-        if fastest <= 0:
+        lasting = np.abs(modes.lam.real) < np.abs(modes.lam.imag)
+        if not lasting.any():
             return np.inf
-        return EVENT_PERIOD_FRACTION * 2 * np.pi / fastest * 8
+        fastest = float(np.max(np.abs(modes.lam.imag[lasting])))
+        return OSCILLATION_PERIODS * 2 * np.pi / fastest
 
     # -- propagators ------------------------------------------------------------------------
     def _propagate(self, modes: LinearModes, inputs: Inputs, h: float, dense: ExactDense) -> np.ndarray:
