@@ -175,6 +175,7 @@ class LinearModes:
         if np.isfinite(cond) and cond < EIGEN_CONDITION_LIMIT:
             self.lam, self.X = lam, X
             self.X_inv = la.inv(X)
+            self.PX = self.P @ X  # each mode's shape in the unknowns
             self.use_eigen = True
 
     # -- the state ---------------------------------------------------------------

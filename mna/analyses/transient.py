@@ -588,13 +588,16 @@ class _Run:
             return None
         t0, t1 = step.t_old, step.t
         h = t1 - t0
-        pieces = 1 if step.dense.order <= 2 else PIECES
+        pieces = getattr(step.dense, "pieces", None) or (1 if step.dense.order <= 2 else PIECES)
         times = t0 + h * np.arange(pieces + 1) / pieces
         xs = [self.x_before] + list(step.dense(times[1:-1])) + [step.x]
         for a in range(pieces):
             te = self.event_time(times[a], xs[a], times[a + 1], xs[a + 1])
             if te is not None:
-                te = self.refine_event(step.dense, times[a], xs[a], times[a + 1], xs[a + 1], te)
+                if t1 - te <= 1e-9 * h:  # at the step's end: the state changes there
+                    return None
+                if step.dense.exact:  # (an integrator's next step would not land on its dense output's root)
+                    te = self.refine_event(step.dense, times[a], xs[a], times[a + 1], xs[a + 1], te)
                 # (an integrator does not land within a millionth of a step
                 # of its start; an exact trajectory lands anywhere)
                 near = self.cfg.min_step if step.dense.exact else max(self.cfg.min_step, 1e-6 * h)
@@ -665,9 +668,11 @@ class _Run:
                 x_jump = self.jump(x, t, h0, q)
                 # One change can cause another at the same instant (a switch
                 # opens and drives a diode's voltage past its drop): settle them.
+                seen = {self.version}
                 for _ in range(8):
-                    if not (self.event_batches and self.update_events(t, x_jump)):
-                        break
+                    if not (self.event_batches and self.update_events(t, x_jump)) or self.version in seen:
+                        break  # settled, or back in a state seen at this instant (it chatters)
+                    seen.add(self.version)
                     x_jump = self.jump(x, t, h0, q)
                 xdot = (x_jump - x) / h0
                 if not line.fixed:
@@ -690,9 +695,11 @@ class _Run:
         such state of its own (the run then solves a short jump step)."""
         try:
             own = stepper.after_event(t, x)
+            seen = {self.version}
             for _ in range(8):
-                if own is None or not self.update_events(t, own[0]):
-                    break
+                if own is None or not self.update_events(t, own[0]) or self.version in seen:
+                    break  # settled, or back in a state seen at this instant (it chatters)
+                seen.add(self.version)
                 own = stepper.after_event(t, x)
         except NotExact:
             return None

@@ -35,6 +35,9 @@ EXACT_LIMIT = 200
 #: the fastest lasting oscillation, so that no crossing hides between the
 #: points the run looks at (eight per step: two per period).
 OSCILLATION_PERIODS = 4.0
+#: Error of the cubic through 4 equally spaced points of a step, per
+#: (h |lam|)^4 and unit amplitude (see ExactStepper._resolution_step).
+RESOLUTION_K = 5.1e-4
 #: Propagators kept per run (switch state x step length).
 PROPAGATOR_CACHE = 256
 
@@ -66,6 +69,9 @@ class ExactDense(DenseOutput):
 
     order = 99  # exact: the run samples it as finely as its highest order asks
     exact = True
+    #: Points the run looks at for events inside one step (two per period of
+    #: the fastest lasting oscillation, see OSCILLATION_PERIODS).
+    pieces = 8
 
     def __init__(self, modes: LinearModes, y0: np.ndarray, inputs: Inputs, t_old: float, t: float):
         super().__init__(t_old, t)
@@ -139,8 +145,13 @@ class ExactStepper(Stepper):
         self.current = self.modes()
         self.y = self.current.y_from_charges(self.current.C @ self.x)
         self.xdot = np.zeros(self.x.size)
-        # Each interval is exact: the next step may reach the next corner.
-        self.h = self._longest_step(self.current)
+        # Each interval is exact: the next step may reach the next corner,
+        # unless the recorded points would not show the waveform.
+        if not hasattr(self, "x_scale"):
+            self.x_scale = np.zeros(self.x.size)
+        inputs = self.sources.inputs(self.t, self.t + 1e-9 * max(abs(self.t), 1e-6))
+        self.h = min(self._longest_step(self.current),
+                     self._resolution_step(self.current, self.y, self.x, inputs))
 
     def after_event(self, t: float, x: np.ndarray):
         """The state just after t in the new switch state: charges and fluxes
@@ -161,8 +172,9 @@ class ExactStepper(Stepper):
         y1 = self._propagate(modes, inputs, h, dense)
         x1 = modes.x_of(y1[None, :], inputs.at([h]))[0]
         xdot = xdot_rows(modes, y1[None, :], inputs, np.array([h]))[0]
+        h_next = min(self._longest_step(modes), self._resolution_step(modes, y1, x1, inputs))
         return Step(CANDIDATE, self.t, t_new, x=x1, xdot=xdot, dense=dense, error=0.0,
-                    h_next=self._longest_step(modes), memo=y1, length=h)
+                    h_next=h_next, memo=y1, length=h)
 
     def _accept(self, step: Step) -> None:
         self.y = step.memo
@@ -183,6 +195,44 @@ class ExactStepper(Stepper):
             return np.inf
         fastest = float(np.max(np.abs(modes.lam.imag[lasting])))
         return OSCILLATION_PERIODS * 2 * np.pi / fastest
+
+    def _resolution_step(self, modes: LinearModes, y: np.ndarray, x: np.ndarray, inputs: Inputs) -> float:
+        """The longest step whose recorded points (its ends and two inside) show the waveform.
+
+        Between the four points a step records, results are read on the
+        cubic through them; for a mode exp(lam s) of amplitude a the cubic
+        is off by about ``K a (h |lam|)^4`` (K = 5.1e-4 for points at 0,
+        1/3, 2/3 and 1 of the step: the nodal polynomial's largest value
+        over 4!). Each mode's amplitude is its distance from the response
+        the constant inputs hold it to, measured on every unknown against
+        the largest value that unknown has had; a mode that has decayed
+        below the tolerance no longer limits the step. A sine input limits
+        the step as a mode of its frequency at full amplitude would.
+        """
+        tol = float(getattr(self.problem, "tolerance", 1e-3))
+        np.maximum(self.x_scale, np.abs(x), out=self.x_scale)
+        floor = 1e-6 * float(self.x_scale.max()) if self.x_scale.size else 0.0
+        scale = np.maximum(self.x_scale, max(floor, 1e-30))
+        h = np.inf
+        for w in inputs.omega.tolist():
+            h = min(h, (tol / RESOLUTION_K) ** 0.25 / w)
+        if modes.r == 0 or not modes.use_eigen:
+            return h
+        lam = modes.lam
+        moving = np.abs(lam) > 0
+        if not moving.any():
+            return h
+        const, _, _ = modes.forcing(inputs)
+        z = modes.X_inv @ y
+        z_rest = np.zeros(z.shape, dtype=complex)
+        z_rest[moving] = -(modes.X_inv @ const)[moving] / lam[moving]
+        amplitude = np.abs(modes.PX) * np.abs(z - z_rest)[None, :]   # unknown x mode
+        ratio = np.max(amplitude / scale[:, None], axis=0)
+        limited = moving & (ratio > tol)
+        if not limited.any():
+            return h
+        steps = (tol / (RESOLUTION_K * ratio[limited])) ** 0.25 / np.abs(lam[limited])
+        return min(h, float(steps.min()))
 
     # -- propagators ------------------------------------------------------------------------
     def _propagate(self, modes: LinearModes, inputs: Inputs, h: float, dense: ExactDense) -> np.ndarray:
