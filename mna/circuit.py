@@ -976,7 +976,7 @@ class Circuit:
         self,
         until: float | str,
         step: float | str | None = None,
-        method: str = "backward-euler",
+        method: str | None = None,
         start: Any = "dc",
         record: Iterable[str] | None = None,
         **options: Any,
