@@ -99,7 +99,8 @@ def test_backward_euler_start_converges_at_first_order():
                     dense_output=True)
     errors = []
     for h in (4e-6, 2e-6):
-        res = mna.parse(motor_text()).transient(until=0.02, step=h, start="rest", record=["i(M1)", "w(rotor)"])
+        res = mna.parse(motor_text()).transient(until=0.02, step=h, start="rest", record=["i(M1)", "w(rotor)"],
+                                                method="backward-euler")
         i_ref, w_ref = ref.sol(res.time)
         err_i = np.max(np.abs(res["i(M1)"] - i_ref)) / np.max(i_ref)
         err_w = np.max(np.abs(res["w(rotor)"] - w_ref)) / np.max(w_ref)

@@ -222,8 +222,9 @@ def test_pwm_periods_reuse_their_propagators():
     s = w.statistics
     assert s["path"] == "exact intervals"
     # 100 periods: the on and off intervals of every period after the
-    # first few reuse the propagators of the earlier ones.
-    assert s["propagators_reused"] > 10 * s["propagators_built"]
+    # first few reuse the propagators of the earlier ones (steps shortened
+    # while the start-up transient rings build a few more).
+    assert s["propagators_reused"] > 5 * s["propagators_built"]
 
 
 def test_method_exact_explains_a_refusal():

@@ -69,7 +69,7 @@ def test_an_error_controlled_run_stops_at_the_step_limit_with_its_partial_result
 
 
 def test_a_step_longer_than_until_warns_and_takes_one_step():
-    circuit = rl("1 ms", "step=5 ms start=rest")
+    circuit = rl("1 ms", "step=5 ms start=rest method=backward-euler")
     assert any("rl.mna:4:10" in w and "longer than until" in w for w in circuit.warnings)
     res = circuit.run()[0]
     assert res.time[-1] == pytest.approx(1e-3)

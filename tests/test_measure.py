@@ -50,7 +50,7 @@ def run(netlist: str) -> CheckReport:
 SINE_NET = """
 voltage-source V1 in -> gnd sine(amplitude=170 V, frequency=50 Hz)
 resistor R1 in -> gnd 1 kohm
-simulate transient until=40 ms
+simulate transient until=40 ms method=backward-euler
 measure r = rms(v(in))
 measure m = mean(v(in))
 measure pk = peak(v(in))

@@ -167,7 +167,7 @@ let Tmin = 1 ns
 voltage-source V1 in -> gnd step(from=0 V, to=1 V, at=0.1 ms)
 resistor R1 in -> out 1 kohm
 capacitor C1 out -> gnd 10 nF
-simulate transient until=1 ms min-step=Tmin
+simulate transient until=1 ms min-step=Tmin method=backward-euler
 measure v_end = final(v(out))
 check v_end > 0.9 V
 """

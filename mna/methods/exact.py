@@ -35,9 +35,9 @@ EXACT_LIMIT = 200
 #: the fastest lasting oscillation, so that no crossing hides between the
 #: points the run looks at (eight per step: two per period).
 OSCILLATION_PERIODS = 4.0
-#: Error of the cubic through 4 equally spaced points of a step, per
-#: (h |lam|)^4 and unit amplitude (see ExactStepper._resolution_step).
-RESOLUTION_K = 5.1e-4
+#: Error of straight lines through the 4 points a step records, per
+#: (h |lam|)^2 and unit amplitude: (1/3)^2 / 8 (see ExactStepper._resolution_step).
+RESOLUTION_K = 1.0 / 72.0
 #: Propagators kept per run (switch state x step length).
 PROPAGATOR_CACHE = 256
 
@@ -149,7 +149,9 @@ class ExactStepper(Stepper):
         # unless the recorded points would not show the waveform.
         if not hasattr(self, "x_scale"):
             self.x_scale = np.zeros(self.x.size)
-        inputs = self.sources.inputs(self.t, self.t + 1e-9 * max(abs(self.t), 1e-6))
+        inputs = self.sources.inputs(self.t, self.t + 1e-6 * max(abs(self.t), 1e-9))
+        if getattr(getattr(self.problem, "cfg", None), "step", None) is not None:
+            return  # a fixed step= is the output grid the user asked for
         self.h = min(self._longest_step(self.current),
                      self._resolution_step(self.current, self.y, self.x, inputs))
 
@@ -159,7 +161,9 @@ class ExactStepper(Stepper):
         self.t = t
         modes = self.modes()
         y = modes.y_from_charges(modes.C @ x)
-        delta = 1e-9 * max(abs(t), 1e-6)
+        # (the sources just after t: past an ideal edge's rounding guard of a
+        # billionth of a period, short of any corner)
+        delta = 1e-6 * max(abs(t), 1e-9)
         inputs = self.sources.inputs(t, t + delta)
         x_after = modes.x_of(y[None, :], inputs.a[None, :])[0]
         return x_after, xdot_rows(modes, y[None, :], inputs, np.zeros(1))[0]
@@ -199,15 +203,15 @@ class ExactStepper(Stepper):
     def _resolution_step(self, modes: LinearModes, y: np.ndarray, x: np.ndarray, inputs: Inputs) -> float:
         """The longest step whose recorded points (its ends and two inside) show the waveform.
 
-        Between the four points a step records, results are read on the
-        cubic through them; for a mode exp(lam s) of amplitude a the cubic
-        is off by about ``K a (h |lam|)^4`` (K = 5.1e-4 for points at 0,
-        1/3, 2/3 and 1 of the step: the nodal polynomial's largest value
-        over 4!). Each mode's amplitude is its distance from the response
-        the constant inputs hold it to, measured on every unknown against
-        the largest value that unknown has had; a mode that has decayed
-        below the tolerance no longer limits the step. A sine input limits
-        the step as a mode of its frequency at full amplitude would.
+        Measurements read the results as straight lines between recorded
+        points, a third of a step apart; for a mode exp(lam s) of amplitude a
+        the line is off by at most ``a (h |lam| / 3)^2 / 8`` (the
+        interpolation remainder, |f''| spacing^2 / 8). Each mode's
+        amplitude is its distance from the response the constant inputs
+        hold it to, measured on every unknown against the largest value that
+        unknown has had; a mode that has decayed below the tolerance no
+        longer limits the step. A sine input limits the step as a mode of
+        its frequency at full amplitude would.
         """
         tol = float(getattr(self.problem, "tolerance", 1e-3))
         np.maximum(self.x_scale, np.abs(x), out=self.x_scale)
@@ -215,7 +219,7 @@ class ExactStepper(Stepper):
         scale = np.maximum(self.x_scale, max(floor, 1e-30))
         h = np.inf
         for w in inputs.omega.tolist():
-            h = min(h, (tol / RESOLUTION_K) ** 0.25 / w)
+            h = min(h, (tol / RESOLUTION_K) ** 0.5 / w)
         if modes.r == 0 or not modes.use_eigen:
             return h
         lam = modes.lam
@@ -231,7 +235,7 @@ class ExactStepper(Stepper):
         limited = moving & (ratio > tol)
         if not limited.any():
             return h
-        steps = (tol / (RESOLUTION_K * ratio[limited])) ** 0.25 / np.abs(lam[limited])
+        steps = (tol / (RESOLUTION_K * ratio[limited])) ** 0.5 / np.abs(lam[limited])
         return min(h, float(steps.min()))
 
     # -- propagators ------------------------------------------------------------------------
