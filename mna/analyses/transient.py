@@ -841,26 +841,3 @@ def _statistics(run: _Run, cfg: _Settings, system: System, started: float, n: in
     return statistics
 
 
-def _snap(h: float, step: float) -> float:
-    """Make steps that differ from ``step`` only by rounding exactly equal (LU reuse)."""
-    return step if abs(h - step) <= 1e-9 * step else h
-
-
-def _ladder(h: float, until: float) -> float:
-    """Round a step down to the ladder 2**(k/LADDER) * until (few distinct matrices)."""
-    k = math.floor(LADDER * math.log2(h / until) + 1e-9)
-    return until * 2.0 ** (k / LADDER)
-
-
-def _contains(sorted_times: np.ndarray, t: float) -> bool:
-    i = np.searchsorted(sorted_times, t)
-    return bool(i < sorted_times.size and sorted_times[i] == t)
-
-
-def _corner_flags(grid: np.ndarray, corners: np.ndarray) -> np.ndarray:
-    """For each grid point, whether it is a corner (where the history is cut)."""
-    flags = np.zeros(grid.size, dtype=bool)
-    if corners.size:
-        idx = np.clip(np.searchsorted(grid, corners), 0, grid.size - 1)
-        flags[idx[grid[idx] == corners]] = True
-    return flags

@@ -103,3 +103,21 @@ class BranchPattern:
         if self._j_map is not None:
             return self._j_map.dot(conductance)
         return conductance[self._j_pick] * self._j_sign
+
+
+def states_from_log(probe, element) -> np.ndarray:
+    """An element's discrete state (1.0 or 0.0) at each recorded time, from the run's log.
+
+    The first of two samples at one time (a state change there) is the one
+    before the change.
+    """
+    time = np.asarray(probe.time, dtype=float)
+    log_t, log_s = probe.state_log(element)
+    if log_t.size == 0:
+        return np.zeros_like(time)
+    k = np.searchsorted(log_t, time, side="right") - 1
+    first_of_pair = np.zeros(time.size, dtype=bool)
+    first_of_pair[:-1] = time[1:] == time[:-1]
+    before = np.searchsorted(log_t, time, side="left") - 1
+    k = np.where(first_of_pair, before, k)
+    return np.where(k >= 0, log_s[np.maximum(k, 0)], log_s[0]).astype(float)

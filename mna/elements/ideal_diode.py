@@ -34,7 +34,7 @@ import numpy as np
 from ..errors import InputError
 from ..units import AMPERE, DIMENSIONLESS, OHM, VOLT, WATT
 from .base import CONDUCTOR, Arg, Branch, NonlinearBatch
-from .batching import BranchPattern
+from .batching import BranchPattern, states_from_log
 from .passive import TwoTerminal
 
 
@@ -64,16 +64,7 @@ class IdealDiode(TwoTerminal):
 
     def states(self, probe) -> np.ndarray:
         """Conducting (1.0) or blocking (0.0) at each recorded time, from the run's log."""
-        time = np.asarray(probe.time, dtype=float)
-        log_t, log_s = probe.state_log(self)
-        if log_t.size == 0:
-            return np.zeros_like(time)
-        k = np.searchsorted(log_t, time, side="right") - 1
-        first_of_pair = np.zeros(time.size, dtype=bool)
-        first_of_pair[:-1] = time[1:] == time[:-1]
-        before = np.searchsorted(log_t, time, side="left") - 1
-        k = np.where(first_of_pair, before, k)
-        return np.where(k >= 0, log_s[np.maximum(k, 0)], log_s[0]).astype(float)
+        return states_from_log(probe, self)
 
     def current(self, probe):
         on = self.states(probe) > 0.5

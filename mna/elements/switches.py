@@ -61,7 +61,7 @@ from ..expressions import evaluate
 from ..limits import periodic_edges
 from ..units import AMPERE, DIMENSIONLESS, HERTZ, OHM, SECOND, VOLT, WATT, Dimension, Quantity, describe
 from .base import CONDUCTOR, Arg, Branch, NonlinearBatch
-from .batching import BranchPattern, NodeSelector
+from .batching import BranchPattern, NodeSelector, states_from_log
 from .passive import TwoTerminal
 
 STATE_WORDS = {"closed": True, "on": True, "open": False, "off": False}
@@ -500,17 +500,7 @@ class Switch(TwoTerminal):
     # -- results ---------------------------------------------------------------------
     def states(self, probe) -> np.ndarray:
         """Closed (1.0) or open (0.0) at each recorded time, from the run's state log."""
-        time = np.asarray(probe.time, dtype=float)
-        log_t, log_s = probe.state_log(self)
-        if log_t.size == 0:
-            return np.zeros_like(time)
-        k = np.searchsorted(log_t, time, side="right") - 1
-        # The first of two samples at one time is the one before the change there.
-        first_of_pair = np.zeros(time.size, dtype=bool)
-        first_of_pair[:-1] = time[1:] == time[:-1]
-        before = np.searchsorted(log_t, time, side="left") - 1
-        k = np.where(first_of_pair, before, k)
-        return np.where(k >= 0, log_s[np.maximum(k, 0)], log_s[0]).astype(float)
+        return states_from_log(probe, self)
 
     def current(self, probe):
         closed = self.states(probe)
