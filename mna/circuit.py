@@ -1005,13 +1005,18 @@ class Circuit:
                 known = ", ".join(k.replace("-", "_") for k in TRANSIENT_SETTINGS if k not in settings)
                 raise InputError(f"transient() got an unknown option {key!r}; the options are {known}")
             settings[name] = _python_value(TRANSIENT_SETTINGS[name], value, f"transient() {key}=")
-        records = None
-        if record is not None:
-            records = []
-            for text in record:
-                st = nl.parse_netlist(f"record {text}").statements[0]
-                records.extend(self.signal_ref(q) for q in st.quantities)
+        records = self._record_refs(record)
         return transient(self, settings, records)
+
+    def _record_refs(self, record: Iterable[str] | None):
+        """The quantities named in ``record`` (texts as on a record line), or None."""
+        if record is None:
+            return None
+        refs = []
+        for text in record:
+            st = nl.parse_netlist(f"record {text}").statements[0]
+            refs.extend(self.signal_ref(q) for q in st.quantities)
+        return refs
 
     def frequency(
         self,
@@ -1035,12 +1040,7 @@ class Circuit:
         from .frequency_settings import python_settings
 
         settings = python_settings(low, high, per_decade, at)
-        records = None
-        if record is not None:
-            records = []
-            for text in record:
-                st = nl.parse_netlist(f"record {text}").statements[0]
-                records.extend(self.signal_ref(q) for q in st.quantities)
+        records = self._record_refs(record)
         return frequency_response(self, settings, records)
 
     def periodic(
@@ -1077,12 +1077,7 @@ class Circuit:
             if isinstance(value, str) and arg.kind == "quantity" and arg.dimension is not None:
                 value = _python_value(arg, value, f"periodic() {key}")
             settings[name] = value
-        records = None
-        if record is not None:
-            records = []
-            for text in record:
-                st = nl.parse_netlist(f"record {text}").statements[0]
-                records.extend(self.signal_ref(q) for q in st.quantities)
+        records = self._record_refs(record)
         return periodic(self, settings, records)
 
     def run(self) -> list:
